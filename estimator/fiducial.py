@@ -1,0 +1,191 @@
+"""The fiducial waveform: the maximum-likelihood point, and a Gaussian around it.
+
+Relative binning is accurate near its fiducial, so the fiducial is found by
+climbing the binned likelihood, rebuilding the bins at each new peak, and
+finishing on the exact likelihood (Zackay, Dai & Venumadhav 2018,
+arXiv:1806.08792, Sec. III, who optimise the fiducial the same way). The
+local curvature of the log-likelihood there, a numerical Fisher matrix
+(Cutler & Flanagan 1994, PRD 49, 2658, Sec. IV; Vallisneri 2008, PRD 77,
+042001, on when it is a fair estimate), sets the size of the ball the
+sampler's walkers start from.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.optimize
+from numpy.typing import NDArray
+
+from .conditioning import DetectorData
+from .likelihood import PARAMETER_NAMES, ExactLikelihood
+from .relbin import RelativeBinningLikelihood
+from .waveform import chirp_time
+
+__all__ = ["Fiducial", "curvature_covariance", "find_fiducial"]
+
+Array = NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class Fiducial:
+    """Maximum-likelihood parameters (by name) and their exact log-likelihood ratio."""
+
+    params: dict[str, float]
+    log_likelihood: float
+    snr: float
+    evaluations: int
+
+
+def _scales(chirp_mass: float, f_low: float) -> Array:
+    """Rough 1-sigma-like step sizes for (chirp mass, q, d_eff fraction, t_c)."""
+    tau = float(chirp_time(chirp_mass, f_low))
+    rel_mc = 0.6 * 0.2 / f_low / max(tau, 1e-3)
+    return np.array([chirp_mass * max(rel_mc, 1e-6), 0.05, 0.1, 5e-4])
+
+
+def _profile_distance(
+    like: ExactLikelihood | RelativeBinningLikelihood, x: Array, reference: Mapping[str, float]
+) -> tuple[float, float]:
+    """Log-likelihood maximised over effective distance, and that distance.
+
+    For ``h = h_1 / D`` the overlap is ``|z_1| / D`` and ``<h|h> = <h_1|h_1>/D^2``;
+    ``|z| - <h|h>/2`` peaks at ``D = <h_1|h_1>/|z_1|`` (``ln I_0(x) ≈ x``, large ``x``).
+    """
+    params = {
+        "chirp_mass": np.array([x[0]]),
+        "mass_ratio": np.array([x[1]]),
+        "effective_distance": np.array([1.0]),
+        "coalescence_time": np.array([x[2]]),
+    }
+    z, hh = like.overlaps(params)
+    dist = float(hh.sum() / max(np.abs(z).sum(), 1e-300))
+    params["effective_distance"] = np.array([dist])
+    return float(like.log_likelihood(params)[0]), dist
+
+
+def find_fiducial(
+    datasets: Sequence[DetectorData],
+    reference_time: float,
+    start: Mapping[str, float],
+    *,
+    mass_ratio_range: tuple[float, float],
+    chirp_mass_range: tuple[float, float],
+    time_window: float,
+    n_bins: int,
+    rounds: int = 3,
+    exact_iterations: int = 80,
+    progress: Callable[[float], None] | None = None,
+) -> Fiducial:
+    """Maximise the likelihood over (chirp mass, q, t_c), distance profiled out.
+
+    Parameters
+    ----------
+    start
+        Starting point by name (``chirp_mass``, ``mass_ratio``, ``coalescence_time``
+        relative to ``reference_time``).
+    """
+    exact = ExactLikelihood(datasets, reference_time)
+    f_low = min(d.f_low for d in datasets)
+    scale = _scales(float(start["chirp_mass"]), f_low)[[0, 1, 3]]
+    lo = np.array([chirp_mass_range[0], mass_ratio_range[0], -time_window])
+    hi = np.array([chirp_mass_range[1], mass_ratio_range[1], time_window])
+    x = np.array([start["chirp_mass"], start["mass_ratio"], start["coalescence_time"]], dtype=float)
+    evaluations = 0
+
+    def objective(
+        like: ExactLikelihood | RelativeBinningLikelihood, transform: Array
+    ) -> Callable[[Array], float]:
+        def f(u: Array) -> float:
+            nonlocal evaluations
+            evaluations += 1
+            y = x_anchor + transform @ u
+            # Clip onto the box (flat outside it) so the simplex can slide along a bound.
+            y = np.clip(y, lo, hi)
+            return -_profile_distance(like, y, start)[0]
+
+        return f
+
+    _, dist = _profile_distance(
+        RelativeBinningLikelihood(datasets, reference_time, {**start, "effective_distance": 1.0},
+                                  n_bins=n_bins), x, start)
+    steps = {"chirp_mass": scale[0], "mass_ratio": scale[1], "effective_distance": 0.1 * dist,
+             "coalescence_time": scale[2]}
+    for r in range(rounds + 1):
+        x_anchor = x.copy()
+        fid = {"chirp_mass": x[0], "mass_ratio": x[1], "effective_distance": dist,
+               "coalescence_time": x[2]}
+        like: ExactLikelihood | RelativeBinningLikelihood
+        if r < rounds:
+            like = RelativeBinningLikelihood(datasets, reference_time, fid, n_bins=n_bins)
+            # Whiten the coordinates with the local curvature, so the simplex moves
+            # along the chirp-mass / mass-ratio ridge instead of across it.
+            for _ in range(2):
+                cov = curvature_covariance(like.log_likelihood, fid, steps)
+                steps = {k: 0.5 * float(np.sqrt(cov[i, i])) for i, k in enumerate(PARAMETER_NAMES)}
+                steps["mass_ratio"] = min(steps["mass_ratio"], 0.1)
+            block = cov[np.ix_([0, 1, 3], [0, 1, 3])]
+            transform = np.linalg.cholesky(block + np.diag(np.diag(block)) * 1e-9)
+            options = {"xatol": 1e-2, "fatol": 1e-3, "maxiter": 300}
+            simplex = np.eye(3) * 1.0
+        else:
+            like = exact
+            options = {"xatol": 1e-2, "fatol": 1e-4, "maxiter": exact_iterations}
+            simplex = np.eye(3) * 0.3
+        init = np.vstack([np.zeros(3), simplex])
+        res = scipy.optimize.minimize(
+            objective(like, transform), np.zeros(3), method="Nelder-Mead",
+            options={**options, "initial_simplex": init},
+        )
+        x = np.clip(x_anchor + transform @ res.x, lo, hi)
+        _, dist = _profile_distance(like, x, start)
+        if progress is not None:
+            progress((r + 1) / (rounds + 1))
+    params = {"chirp_mass": float(x[0]), "mass_ratio": float(x[1]),
+              "effective_distance": float(dist), "coalescence_time": float(x[2])}
+    arrays = {k: np.array([v]) for k, v in params.items()}
+    log_l = float(exact.log_likelihood(arrays)[0])
+    snr = float(exact.matched_filter_snr(arrays)[0])
+    return Fiducial(params=params, log_likelihood=log_l, snr=snr, evaluations=evaluations)
+
+
+def curvature_covariance(
+    log_like: Callable[[Mapping[str, Array]], Array],
+    center: Mapping[str, float],
+    steps: Mapping[str, float],
+    names: Sequence[str] = PARAMETER_NAMES,
+) -> Array:
+    """Inverse of the negative Hessian of ``log_like`` at ``center`` (central differences).
+
+    The numerical Fisher matrix at the peak (Cutler & Flanagan 1994, Eq. 2.6
+    with the likelihood's own curvature). No direction gets a variance
+    larger than its step size squared (flat or non-positive curvature).
+    """
+    names = tuple(names)
+    n = len(names)
+    c = np.array([center[k] for k in names], dtype=float)
+    h = np.array([steps[k] for k in names], dtype=float)
+    points = [c]
+    pairs = []
+    for i in range(n):
+        for j in range(i, n):
+            for si, sj in ((1, 1), (1, -1), (-1, 1), (-1, -1)):
+                p = c.copy()
+                p[i] += si * h[i]
+                p[j] += sj * h[j]
+                points.append(p)
+            pairs.append((i, j))
+    pts = np.array(points)
+    vals = log_like({k: pts[:, i] for i, k in enumerate(names)})
+    hess = np.zeros((n, n))
+    for m, (i, j) in enumerate(pairs):
+        v = vals[1 + 4 * m : 5 + 4 * m]
+        hess[i, j] = hess[j, i] = (v[0] - v[1] - v[2] + v[3]) / (4.0 * h[i] * h[j])
+    # Work in units of the steps so that the eigen-decomposition is well scaled.
+    fisher = -hess * np.outer(h, h)
+    w, v = np.linalg.eigh(0.5 * (fisher + fisher.T))
+    w = np.maximum(w, 1.0)  # no direction wider than one step
+    cov_u = (v / w) @ v.T
+    return np.asarray(cov_u * np.outer(h, h), dtype=float)

@@ -1,0 +1,320 @@
+"""Prior distributions for a single-detector inspiral analysis.
+
+A prior is any object with ``names``, ``bounds``, ``log_prob`` and ``sample``
+(the :class:`Prior` protocol); :class:`InspiralPrior` is the one we ship.
+
+Masses
+------
+Uniform in detector-frame component masses ``m1 >= m2``. With
+``m1 = Mc A(q)``, ``m2 = q Mc A(q)``, ``A(q) = (1+q)^{1/5} q^{-3/5}`` (invert the
+chirp-mass definition of Cutler & Flanagan 1994, PRD 49, 2658, Eq. 1.1), the
+Jacobian is ``|d(m1, m2)/d(Mc, q)| = Mc A(q)^2 = Mc (1+q)^{2/5} q^{-6/5}``
+(derived here; checked in the tests by finite differences and Monte Carlo).
+
+Distance and orientation
+------------------------
+One detector measures only the effective distance ``d_eff = d / w``, with the
+orientation factor ``w = Theta / 4`` in ``[0, 1]`` and
+``Theta = 2 [F+^2 (1 + cos^2 i)^2 + 4 Fx^2 cos^2 i]^{1/2}`` (Finn & Chernoff
+1993, PRD 47, 2198). We take ``w`` from the closed form Finn & Chernoff give for
+its distribution, ``P(Theta) = 5 Theta (4 - Theta)^3 / 256``, i.e.
+``p(w) = 20 w (1-w)^3`` (a Beta(2, 4) law). Note: our Monte Carlo over isotropic
+sky position, polarisation and inclination (tests/estimator/test_priors.py)
+shows that this closed form approximates the isotropic distribution rather than
+equalling it: the largest CDF difference is 0.034, and the exact isotropic
+``<Theta^2>`` is 64/25 against 16/7 for the closed form.
+
+With ``p(d) ∝ d^2`` on ``[0, distance_max]`` (uniform in Euclidean volume,
+common practice), change variables ``(d, w) -> (d_eff, w)``, ``d = w d_eff``
+(Jacobian ``w``): ``p(d_eff, w) ∝ d_eff^2 w^4 (1-w)^3`` on ``w d_eff <= distance_max``,
+so ``p(d_eff) ∝ d_eff^2 G(min(1, distance_max / d_eff))``,
+``G(u) = ∫_0^u w^4 (1-w)^3 dw = B(5, 4) I_u(5, 4)`` (regularized incomplete beta,
+Abramowitz & Stegun 1964, Eq. 26.5.1, from memory). The tail falls as
+``d_eff^-3``; we cut it at ``100 distance_max``, which removes a fraction
+``6 r^2 - 10 r^3 + ... ≈ 5.9e-4`` (``r = 0.01``) of the prior mass.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Protocol, runtime_checkable
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy.special import betainc, betaincinv
+
+from .errors import InputError
+from .waveform import component_masses
+
+__all__ = ["EFFECTIVE_DISTANCE_CUTOFF", "InspiralPrior", "Prior", "draw_orientation"]
+
+Array = NDArray[np.float64]
+
+#: Upper end of the effective-distance support, in units of ``distance_max``.
+EFFECTIVE_DISTANCE_CUTOFF = 100.0
+#: Shape parameters of ``w^4 (1-w)^3``, the orientation factor weighted by ``d^2 ∝ w^2``
+#: and the Jacobian ``w`` (see the module docstring).
+_A, _B = 5.0, 4.0
+
+
+@runtime_checkable
+class Prior(Protocol):
+    """What the sampler needs from a prior."""
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        """Sampled parameter names, in the sampler's column order."""
+        ...
+
+    @property
+    def bounds(self) -> dict[str, tuple[float, float]]:
+        """Support ``(low, high)`` of each sampled parameter."""
+        ...
+
+    def log_prob(self, params: Mapping[str, Array]) -> Array:
+        """Log prior density, shape ``(n,)``, ``-inf`` outside the support."""
+        ...
+
+    def sample(self, rng: np.random.Generator, n: int) -> dict[str, Array]:
+        """``n`` independent draws from the prior, keyed by ``names``."""
+        ...
+
+
+def _check_interval(name: str, value: tuple[float, float], low: float, high: float) -> None:
+    lo, hi = (float(v) for v in value)
+    if not (np.isfinite(lo) and np.isfinite(hi) and low <= lo < hi <= high):
+        raise InputError(
+            f"{name} bounds ({lo:g}, {hi:g}) are not an increasing pair inside "
+            f"[{low:g}, {high:g}]; give (low, high) with low < high",
+            field=name,
+        )
+
+
+@dataclass(frozen=True)
+class InspiralPrior:
+    """Prior over ``(chirp_mass, mass_ratio, effective_distance, coalescence_time)``.
+
+    Attributes
+    ----------
+    chirp_mass
+        ``(low, high)`` detector-frame chirp mass, Msun.
+    mass_ratio
+        ``(low, high)`` of ``q = m2/m1``, with ``0 < low < high <= 1``.
+    component_mass
+        ``(low, high)`` for each of ``m1`` and ``m2``, detector-frame Msun.
+    distance_max
+        Largest luminosity distance, Mpc.
+    time_window
+        Half-width of the uniform coalescence-time prior around the trigger time, s.
+
+    Notes
+    -----
+    Densities are given in the module docstring with their sources.
+    ``log_prob`` is unnormalised (correct up to an additive constant), which is
+    all an MCMC sampler needs.
+    """
+
+    chirp_mass: tuple[float, float]
+    mass_ratio: tuple[float, float]
+    component_mass: tuple[float, float]
+    distance_max: float
+    time_window: float = 0.1
+
+    def __post_init__(self) -> None:
+        _check_interval("chirp_mass", self.chirp_mass, np.finfo(float).tiny, np.inf)
+        _check_interval("mass_ratio", self.mass_ratio, np.finfo(float).tiny, 1.0)
+        _check_interval("component_mass", self.component_mass, np.finfo(float).tiny, np.inf)
+        for name in ("distance_max", "time_window"):
+            value = float(getattr(self, name))
+            if not (np.isfinite(value) and value > 0.0):
+                raise InputError(
+                    f"{name} is {value:g}; it must be a positive finite number", field=name
+                )
+        (m1_lo, m1_hi), (m2_lo, m2_hi) = self._mass_box()
+        if m1_lo > m1_hi or m2_lo > m2_hi:
+            raise InputError(
+                f"chirp_mass {self.chirp_mass} and mass_ratio {self.mass_ratio} need component "
+                f"masses m1 in [{m1_lo:g}, {m1_hi:g}] and m2 in [{m2_lo:g}, {m2_hi:g}], outside "
+                f"component_mass {self.component_mass}; widen one of the ranges",
+                field="component_mass",
+            )
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        """``("chirp_mass", "mass_ratio", "effective_distance", "coalescence_time")``."""
+        return ("chirp_mass", "mass_ratio", "effective_distance", "coalescence_time")
+
+    @property
+    def bounds(self) -> dict[str, tuple[float, float]]:
+        """Support of each sampled parameter (Msun, 1, Mpc, s)."""
+        return {
+            "chirp_mass": (float(self.chirp_mass[0]), float(self.chirp_mass[1])),
+            "mass_ratio": (float(self.mass_ratio[0]), float(self.mass_ratio[1])),
+            "effective_distance": (0.0, EFFECTIVE_DISTANCE_CUTOFF * self.distance_max),
+            "coalescence_time": (-self.time_window, self.time_window),
+        }
+
+    def _mass_box(self) -> tuple[tuple[float, float], tuple[float, float]]:
+        """Ranges of ``m1`` and ``m2`` that contain the whole mass support.
+
+        ``m1 = Mc A(q)`` falls with ``q`` and ``m2 = Mc (1+q)^{1/5} q^{2/5}`` rises with it.
+        """
+        (mc_lo, mc_hi), (q_lo, q_hi), (c_lo, c_hi) = (
+            self.chirp_mass,
+            self.mass_ratio,
+            self.component_mass,
+        )
+        m1_lo = float(component_masses(mc_lo, q_hi)[0])
+        m1_hi = float(component_masses(mc_hi, q_lo)[0])
+        m2_lo = float(component_masses(mc_lo, q_lo)[1])
+        m2_hi = float(component_masses(mc_hi, q_hi)[1])
+        return ((max(c_lo, m1_lo), min(c_hi, m1_hi)), (max(c_lo, m2_lo), min(c_hi, m2_hi)))
+
+    def log_prob(self, params: Mapping[str, Array]) -> Array:
+        """Unnormalised log prior density.
+
+        ``log Mc + (2/5) log(1+q) - (6/5) log q + 2 log d_eff + log I_u(5, 4)``,
+        ``u = min(1, distance_max / d_eff)``, plus a constant; ``-inf`` outside the
+        support (see the module docstring for the derivation and sources).
+
+        Parameters
+        ----------
+        params
+            Arrays of shape ``(n,)`` keyed by at least ``names``.
+
+        Returns
+        -------
+        Array of shape ``(n,)``.
+        """
+        mc = np.asarray(params["chirp_mass"], dtype=float)
+        q = np.asarray(params["mass_ratio"], dtype=float)
+        d_eff = np.asarray(params["effective_distance"], dtype=float)
+        t = np.asarray(params["coalescence_time"], dtype=float)
+        bounds = self.bounds
+        ok = (t >= -self.time_window) & (t <= self.time_window)
+        for name, x in (("chirp_mass", mc), ("mass_ratio", q)):
+            ok &= (x >= bounds[name][0]) & (x <= bounds[name][1])
+        ok &= (d_eff > 0.0) & (d_eff <= bounds["effective_distance"][1])
+        mc = np.where(ok, mc, 1.0)
+        q = np.where(ok, q, 1.0)
+        d_eff = np.where(ok, d_eff, 1.0)
+        m1, m2 = component_masses(mc, q)
+        c_lo, c_hi = self.component_mass
+        ok &= (m2 >= c_lo) & (m1 <= c_hi) & (m1 >= c_lo) & (m2 <= c_hi)
+        u = np.minimum(1.0, self.distance_max / d_eff)
+        value = (
+            np.log(mc)
+            + 0.4 * np.log1p(q)
+            - 1.2 * np.log(q)
+            + 2.0 * np.log(d_eff)
+            + np.log(betainc(_A, _B, u))
+        )
+        return np.where(ok, value, -np.inf)
+
+    def sample(self, rng: np.random.Generator, n: int) -> dict[str, Array]:
+        """Draw ``n`` independent samples from the whole (truncated) prior.
+
+        Masses: ``m1, m2`` uniform with rejection into the bounds. Distance:
+        ``d = distance_max U^{1/3}`` (``p ∝ d^2``), ``w ~ Beta(2, 4)`` (Finn &
+        Chernoff 1993), ``d_eff = d / w``, redrawn where ``d_eff`` exceeds the
+        support. Time: uniform on ``[-time_window, time_window]``.
+        :func:`draw_orientation` recovers ``(w, d)`` given ``d_eff``, exactly.
+
+        Returns
+        -------
+        Arrays of shape ``(n,)`` keyed by ``names``.
+        """
+        if int(n) != n or n < 0:
+            raise InputError(f"sample size is {n!r}; give a non-negative integer", field="n")
+        n = int(n)
+        mc, q = self._sample_masses(rng, n)
+        d_eff = np.empty(n)
+        todo = np.arange(n)
+        d_cut = EFFECTIVE_DISTANCE_CUTOFF * self.distance_max
+        while todo.size:
+            d = self.distance_max * rng.random(todo.size) ** (1.0 / 3.0)
+            w = rng.beta(2.0, 4.0, todo.size)
+            with np.errstate(divide="ignore"):
+                d_eff[todo] = d / w
+            todo = todo[~((d_eff[todo] > 0.0) & (d_eff[todo] <= d_cut))]
+        t = rng.uniform(-self.time_window, self.time_window, n)
+        return {
+            "chirp_mass": mc,
+            "mass_ratio": q,
+            "effective_distance": d_eff,
+            "coalescence_time": t,
+        }
+
+    def _sample_masses(self, rng: np.random.Generator, n: int) -> tuple[Array, Array]:
+        (m1_lo, m1_hi), (m2_lo, m2_hi) = self._mass_box()
+        (mc_lo, mc_hi), (q_lo, q_hi) = self.chirp_mass, self.mass_ratio
+        mc_parts: list[Array] = [np.empty(0)]
+        q_parts: list[Array] = [np.empty(0)]
+        kept = drawn = 0
+        while kept < n:
+            rate = max(kept, 1) / max(drawn, 1)
+            batch = int(min(max(1.5 * (n - kept) / rate, 1024), 2_000_000))
+            m1 = rng.uniform(m1_lo, m1_hi, batch)
+            m2 = rng.uniform(m2_lo, m2_hi, batch)
+            q = m2 / m1
+            mc = (m1 * m2) ** 0.6 / (m1 + m2) ** 0.2
+            keep = (q >= q_lo) & (q <= q_hi) & (mc >= mc_lo) & (mc <= mc_hi)
+            mc_parts.append(mc[keep])
+            q_parts.append(q[keep])
+            kept += int(keep.sum())
+            drawn += batch
+            if kept == 0 and drawn >= 10_000_000:
+                raise InputError(
+                    f"no component masses in {self.component_mass} give chirp_mass in "
+                    f"{self.chirp_mass} and mass_ratio in {self.mass_ratio} "
+                    f"({drawn} tries); widen the mass ranges",
+                    field="chirp_mass",
+                )
+        return np.concatenate(mc_parts)[:n], np.concatenate(q_parts)[:n]
+
+
+def draw_orientation(
+    effective_distance: Array, distance_max: float, rng: np.random.Generator
+) -> tuple[Array, Array]:
+    """Draw the orientation factor and luminosity distance given effective distance.
+
+    Under the prior of :class:`InspiralPrior` (``p(d) ∝ d^2`` up to
+    ``distance_max``, ``p(w) = 20 w (1-w)^3`` from Finn & Chernoff 1993, PRD 47,
+    2198), ``p(w | d_eff) ∝ w^4 (1-w)^3`` on ``[0, u]``, ``u = min(1, distance_max / d_eff)``
+    (module docstring). We draw it by inverse CDF,
+    ``w = I^{-1}(U I_u(5, 4); 5, 4)``, ``U`` uniform, and return ``d = w d_eff``.
+    Applied to posterior samples of ``d_eff`` this gives exact joint posterior
+    samples of (luminosity distance, orientation factor), because the data
+    depend on ``d`` and ``w`` only through ``d_eff``.
+
+    Parameters
+    ----------
+    effective_distance
+        Shape ``(n,)``, Mpc, positive.
+    distance_max
+        The prior's largest luminosity distance, Mpc.
+    rng
+        Source of randomness.
+
+    Returns
+    -------
+    ``(w, luminosity_distance)``, each of shape ``(n,)``; ``w`` in ``[0, 1]``, distance in Mpc.
+    """
+    d_eff = np.asarray(effective_distance, dtype=float)
+    if not (np.isfinite(distance_max) and distance_max > 0.0):
+        raise InputError(
+            f"distance_max is {distance_max:g} Mpc; it must be positive and finite",
+            field="distance_max",
+        )
+    bad = ~(np.isfinite(d_eff) & (d_eff > 0.0))
+    if bad.any():
+        raise InputError(
+            f"effective_distance {d_eff[bad][0]:g} Mpc at index {int(np.flatnonzero(bad)[0])} "
+            "is not a positive finite number; pass posterior samples of effective distance",
+            field="effective_distance",
+        )
+    u = np.minimum(1.0, distance_max / d_eff)
+    w = betaincinv(_A, _B, rng.random(d_eff.shape) * betainc(_A, _B, u))
+    w = np.minimum(w, u)
+    return w, w * d_eff

@@ -1,0 +1,363 @@
+"""The HTML report of one analysis: display-ready context from ``summary.json``, rendered
+by ``templates/report.html``.
+
+Templates only render; every number is formatted here. Intervals are quoted the way
+measurements usually are (common practice): the uncertainty to two significant
+figures and the median to the same decimal place, e.g. ``1.19754 +0.00012 −0.00011``.
+"""
+
+from __future__ import annotations
+
+import base64
+import math
+from collections.abc import Iterator, Mapping
+from functools import lru_cache
+from pathlib import Path
+from typing import Any
+
+import jinja2
+
+__all__ = [
+    "PLOTS",
+    "TEMPLATES_DIR",
+    "build_context",
+    "format_interval",
+    "image_data_uri",
+    "render_report",
+]
+
+TEMPLATES_DIR = Path(__file__).resolve().parents[1] / "templates"
+MINUS = "\u2212"
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+
+#: Row label of each parameter of summary.json.
+LABELS: Mapping[str, str] = {
+    "chirp_mass": "Chirp mass", "mass_ratio": "Mass ratio m₂/m₁",
+    "primary_mass": "Primary mass m₁", "secondary_mass": "Secondary mass m₂",
+    "total_mass": "Total mass", "source_chirp_mass": "Chirp mass",
+    "source_primary_mass": "Primary mass m₁", "source_secondary_mass": "Secondary mass m₂",
+    "source_total_mass": "Total mass", "redshift": "Redshift z",
+    "luminosity_distance": "Luminosity distance", "effective_distance": "Effective distance",
+    "orientation_factor": "Orientation factor", "coalescence_time": "Coalescence time (GPS)",
+    "snr": "Matched-filter SNR",
+}
+#: Table groups: (title, note, parameter names).
+GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
+    ("Detector frame", "as measured: masses redshifted by a factor (1 + z)",
+     ("chirp_mass", "mass_ratio", "primary_mass", "secondary_mass", "total_mass")),
+    ("Source frame", "detector-frame masses divided by (1 + z)",
+     ("source_chirp_mass", "source_primary_mass", "source_secondary_mass",
+      "source_total_mass", "redshift")),
+    ("Distance and time", "",
+     ("luminosity_distance", "effective_distance", "orientation_factor", "coalescence_time")),
+    ("Signal strength", "", ("snr",)),
+)
+UNITS: Mapping[str, str] = {"Msun": "M☉", "": "—"}
+#: Plot key -> (title, caption: what it shows and what to look for).
+PLOTS: Mapping[str, tuple[str, str, str]] = {
+    "corner": ("Posterior distribution",
+               "One-parameter histograms on the diagonal (dashed: median and 90% interval "
+               "bounds) and 50% / 90% credible regions below it.",
+               "smooth, single-peaked shapes. A distribution cut off sharply at one side is "
+               "bounded by the prior range rather than by the data."),
+    "whitened": ("Whitened data near coalescence",
+                 "The data divided by the noise amplitude at each frequency, with the "
+                 "best-fit model drawn over it.",
+                 "large excursions in the data that the model does not follow, a sign of a "
+                 "noise transient. At modest SNR the signal itself is rarely visible by eye."),
+    "time_frequency": ("Time-frequency energy",
+                       "Energy of the whitened data, normalised so that Gaussian noise "
+                       "averages 1; the dashed line is the best-fit model's frequency track.",
+                       "excess energy along the track, rising to coalescence at time 0. "
+                       "Bright, short blobs off the track spanning many frequencies are "
+                       "noise transients that can bias the estimate."),
+    "spectrum": ("Noise spectrum",
+                 "Amplitude spectral density of the analysed data and of the noise model "
+                 "used by the likelihood; shaded: the analysis band.",
+                 "the data following the model across the band. Narrow lines are usual; "
+                 "a broad mismatch in level makes the intervals unreliable."),
+    "traces": ("Sampler traces",
+               "Every walker's position against step for each sampled parameter; shaded: "
+               "burn-in, discarded.",
+               "one well-mixed, level band after burn-in. Drifts, or walkers stuck apart "
+               "from the rest, mean the chain has not converged."),
+}
+_SAFE_SCHEMES = ("http", "https", "data", "file")
+
+
+def _num(value: float, decimals: int) -> str:
+    text = f"{value:.{decimals}f}"
+    return MINUS + text[1:] if text.startswith("-") else text
+
+
+def _sig(value: float, digits: int = 4) -> str:
+    """Shortest readable form with ``digits`` significant figures."""
+    if not math.isfinite(value):
+        return "n/a"
+    if value == 0.0:
+        return "0"
+    text = f"{value:.{digits}g}"
+    if "e" in text:
+        mantissa, exponent = text.split("e")
+        text = f"{mantissa}×10^{int(exponent)}"
+    return text.replace("-", MINUS)
+
+
+def _decimals_for(width: float) -> int:
+    """Decimal places that give ``width`` two significant figures (0 to 12)."""
+    return min(12, max(0, 1 - math.floor(math.log10(width))))
+
+
+def format_interval(
+    median: float, lower: float, upper: float, *, decimals: int | None = None
+) -> dict[str, str | int]:
+    """Format a median and its credible bounds for display.
+
+    Parameters
+    ----------
+    median, lower, upper
+        The median and the bounds of the credible interval.
+    decimals
+        Decimal places; by default those giving the narrower side of the interval
+        two significant figures (common practice), or 4 significant figures of the
+        median when the interval has no width.
+
+    Returns
+    -------
+    ``median``, ``minus`` (``−0.00011``), ``plus`` (``+0.00012``), ``lower``,
+    ``upper`` as strings, and the ``decimals`` used.
+    """
+    values = (median, lower, upper)
+    if not all(isinstance(v, int | float) and math.isfinite(v) for v in values):
+        na = "n/a"
+        return {"median": na, "minus": na, "plus": na, "lower": na, "upper": na, "decimals": 0}
+    minus, plus = median - lower, upper - median
+    if decimals is None:
+        widths = [w for w in (minus, plus) if w > 0.0]
+        if widths:
+            decimals = _decimals_for(min(widths))
+        elif median != 0.0:
+            decimals = min(12, max(0, 3 - math.floor(math.log10(abs(median)))))
+        else:
+            decimals = 0
+    return {
+        "median": _num(median, decimals), "minus": MINUS + f"{abs(minus):.{decimals}f}",
+        "plus": "+" + f"{abs(plus):.{decimals}f}", "lower": _num(lower, decimals),
+        "upper": _num(upper, decimals), "decimals": decimals,
+    }
+
+
+def _percent(p: float) -> str:
+    if not math.isfinite(p):
+        return "n/a"
+    if p >= 0.995:
+        return "> 99%"
+    if p < 0.005:
+        return "< 1%"
+    return f"{100.0 * p:.0f}%"
+
+
+def _checked_link(href: str, what: str) -> str:
+    scheme, sep, _ = href.partition(":")
+    if sep and "/" not in scheme and scheme.lower() not in _SAFE_SCHEMES:
+        msg = f"{what} {href[:40]!r} uses scheme {scheme!r}; use an http(s), data: or relative URL"
+        raise ValueError(msg)
+    return href
+
+
+def _parameter_row(name: str, entry: Mapping[str, Any], trigger: float | None) -> dict[str, Any]:
+    fixed = 4 if name == "coalescence_time" else None  # GPS time: 4 decimals (0.1 ms)
+    row: dict[str, Any] = dict(format_interval(
+        float(entry["median"]), float(entry["lower"]), float(entry["upper"]), decimals=fixed))
+    unit = str(entry.get("unit", ""))
+    row.update(name=name, label=LABELS.get(name, name.replace("_", " ")), unit=unit,
+               unit_display=UNITS.get(unit, unit), extra=None)
+    if name == "coalescence_time" and trigger is not None:
+        offset = format_interval(*(1e3 * (float(entry[k]) - trigger)
+                                   for k in ("median", "lower", "upper")))
+        row["extra"] = {"label": "Coalescence time − trigger", "unit": "ms",
+                        "unit_display": "ms", **offset}
+    return row
+
+
+def _groups(parameters: Mapping[str, Any], trigger: float | None) -> list[dict[str, Any]]:
+    groups = []
+    listed = [*GROUPS, ("Other", "", tuple(n for n in parameters if n not in LABELS))]
+    for title, note, names in listed:
+        rows = [_parameter_row(n, parameters[n], trigger) for n in names if n in parameters]
+        if rows:
+            groups.append({"title": title, "note": note, "rows": rows})
+    return groups
+
+
+def _headline(parameters: Mapping[str, Any], probabilities: Mapping[str, Any]) -> dict[str, Any]:
+    def pick(name: str) -> dict[str, Any] | None:
+        return _parameter_row(name, parameters[name], None) if name in parameters else None
+
+    p_secondary = probabilities.get("secondary_below_3_msun")
+    p_primary = probabilities.get("primary_below_3_msun")
+    return {
+        "chirp_mass": pick("chirp_mass"), "distance": pick("luminosity_distance"),
+        "m1": pick("source_primary_mass"), "m2": pick("source_secondary_mass"),
+        "snr": pick("snr"), "time": pick("coalescence_time"),
+        "ns_possible": None if p_secondary is None else _percent(float(p_secondary)),
+        "both_light": None if p_primary is None else _percent(float(p_primary)),
+    }
+
+
+def _flatten(settings: Mapping[str, Any], prefix: str = "") -> Iterator[tuple[str, str]]:
+    for key, value in settings.items():
+        name = f"{prefix}{key}"
+        if isinstance(value, Mapping):
+            yield from _flatten(value, name + ".")
+        else:
+            yield name, _value(value)
+
+
+def _value(value: Any) -> str:
+    if value is None:
+        return "—"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return str(value)
+        text = f"{value:.0f}" if value.is_integer() and abs(value) < 1e15 else repr(value)
+        return text.replace("-", MINUS)
+    if isinstance(value, list | tuple):
+        return "[" + ", ".join(_value(v) for v in value) + "]"
+    return str(value)
+
+
+def _diagnostics(diag: Mapping[str, Any]) -> dict[str, Any]:
+    steps = int(diag.get("steps", 0))
+    taus = [{"name": LABELS.get(k, k), "tau": f"{float(v):.1f}",
+             "ratio": f"{steps / float(v):.0f}" if float(v) > 0 else "n/a"}
+            for k, v in diag.get("autocorrelation_time", {}).items()]
+    raw = diag.get("likelihood_check")
+    check = None if raw is None else {
+        "passed": bool(raw.get("passed", False)),
+        "max_abs_difference": _sig(float(raw.get("max_abs_difference", math.nan)), 2),
+        "tolerance": _sig(float(raw.get("tolerance", math.nan)), 2),
+        **{k: _value(raw.get(k)) for k in ("draws", "bins", "refinements")},
+    }
+    timings = {str(k): float(v) for k, v in diag.get("timings_s", {}).items()}
+    return {
+        "taus": taus, "ess": f"{float(diag.get('effective_sample_size', math.nan)):,.0f}",
+        "acceptance": f"{float(diag.get('acceptance_fraction', math.nan)):.2f}",
+        "steps": steps, "converged": diag.get("converged"), "check": check,
+        **{k: _value(diag.get(k)) for k in ("walkers", "burn_in", "thin")},
+        "timings": [(k, f"{v:.2f}") for k, v in timings.items()],
+        "total_time": f"{sum(timings.values()):.2f}",
+    }
+
+
+def _inputs(inputs: Mapping[str, Any]) -> dict[str, Any]:
+    strain, psd = inputs.get("strain"), inputs.get("psd")
+    return {
+        "strain": None if not strain else {
+            k: _value(strain.get(k)) for k in ("file", "sha256", "sample_rate", "start_time",
+                                                "duration")},
+        "psd": None if not psd else {
+            "estimated": bool(psd.get("estimated", False)),
+            "method": None if psd.get("method") is None else str(psd["method"]),
+            "file": _value(psd.get("file")), "sha256": _value(psd.get("sha256"))},
+    }
+
+
+def _maximum_likelihood(best: Mapping[str, Any] | None, groups: list[dict[str, Any]]
+                        ) -> list[dict[str, str]] | None:
+    if not best:
+        return None
+    decimals = {r["name"]: int(r["decimals"]) for g in groups for r in g["rows"]}
+    rows = []
+    for name, value in best.items():
+        v = float(value)
+        text = _num(v, 2) if name == "log_likelihood" else (
+            _num(v, decimals[name]) if name in decimals else _sig(v, 6))
+        rows.append({"label": "log likelihood" if name == "log_likelihood"
+                     else LABELS.get(name, name), "value": text})
+    return rows
+
+
+def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
+                  downloads: Mapping[str, str] | None = None,
+                  share_url: str | None = None) -> dict[str, Any]:
+    """Turn a summary.json mapping into the template's display-ready context."""
+    for key in ("label", "parameters"):
+        if key not in summary:
+            msg = f"summary has no {key!r}; pass the summary.json of a finished analysis"
+            raise ValueError(msg)
+    settings = summary.get("settings", {})
+    trigger = settings.get("trigger_time")
+    trigger = float(trigger) if isinstance(trigger, int | float) else None
+    parameters = summary["parameters"]
+    groups = _groups(parameters, trigger)
+    diag = _diagnostics(summary.get("diagnostics", {}))
+    alerts = []
+    if diag["converged"] is False:
+        alerts.append("The sampler did not meet its convergence criterion; treat the "
+                      "intervals as rough.")
+    if diag["check"] is not None and not diag["check"].get("passed", True):
+        alerts.append("The fast likelihood disagreed with the exact likelihood beyond "
+                      "tolerance; the posterior may be distorted.")
+    if share_url is not None and not share_url.lower().startswith(("http://", "https://")):
+        msg = f"share_url {share_url[:40]!r} must be an absolute http(s) URL"
+        raise ValueError(msg)
+    plots = [{"key": k, "src": _checked_link(images[k], f"image {k!r}"),
+              "title": PLOTS.get(k, (k, "", ""))[0], "caption": PLOTS.get(k, (k, "", ""))[1],
+              "look_for": PLOTS.get(k, (k, "", ""))[2]}
+             for k in [*PLOTS, *(k for k in images if k not in PLOTS)] if k in images]
+    software = summary.get("software", {})
+    return {
+        "label": str(summary["label"]),
+        "credible": f"{100.0 * float(summary.get('credible_level', 0.9)):g}%",
+        "headline": _headline(parameters, summary.get("probabilities", {})),
+        "groups": groups, "alerts": alerts, "plots": plots, "diagnostics": diag,
+        "maximum_likelihood": _maximum_likelihood(summary.get("maximum_likelihood"), groups),
+        "notes": [str(n) for n in summary.get("notes", [])],
+        "downloads": None if not downloads else [
+            (name, _checked_link(href, f"download {name!r}")) for name, href in downloads.items()],
+        "share_url": share_url, "settings": list(_flatten(settings)),
+        "inputs": _inputs(summary.get("inputs", {})), "seed": _value(settings.get("seed")),
+        "software": f"{software.get('name', 'chirpcast')} {software.get('version', '')}".strip(),
+        "schema_version": summary.get("schema_version"),
+    }
+
+
+@lru_cache(maxsize=1)
+def _environment() -> jinja2.Environment:
+    return jinja2.Environment(
+        loader=jinja2.FileSystemLoader(TEMPLATES_DIR), autoescape=True,
+        undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True,
+    )
+
+
+def render_report(summary: Mapping[str, Any], *, images: Mapping[str, str],
+                  downloads: Mapping[str, str] | None = None,
+                  share_url: str | None = None) -> str:
+    """Render the self-contained HTML report of one analysis.
+
+    Parameters
+    ----------
+    summary
+        The analysis summary (the contents of summary.json, schema version 1).
+    images
+        Plot key (``"corner"``, ``"whitened"``, ``"time_frequency"``, ``"spectrum"``,
+        ``"traces"``) -> image ``src``: a data: URI or a URL. Missing plots are left out.
+    downloads
+        Link text -> href (samples.csv, summary.json, the PNGs), or ``None``.
+    share_url
+        Absolute URL of this report; when given, a "copy share link" button is shown.
+    """
+    context = build_context(summary, images=images, downloads=downloads, share_url=share_url)
+    return _environment().get_template("report.html").render(context)
+
+
+def image_data_uri(path: str | Path) -> str:
+    """Read a PNG and return it as a ``data:image/png;base64,...`` URI."""
+    data = Path(path).read_bytes()
+    if not data.startswith(PNG_SIGNATURE):
+        msg = f"{path}: not a PNG file (first bytes {data[:8]!r}); pass a PNG written by the plots"
+        raise ValueError(msg)
+    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
