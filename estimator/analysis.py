@@ -91,6 +91,7 @@ class AnalysisResult:
     search: SearchResult
     fiducial: Fiducial
     chain: ChainResult
+    likelihood: RelativeBinningLikelihood
     samples: dict[str, Array]
     sample_log_likelihood: Array
     check: LikelihoodCheck
@@ -295,7 +296,7 @@ def run_analysis(
     samples = chain.samples()
     return AnalysisResult(
         settings=settings, seed=seed, segment=segment, spectrum=spectrum, data=data,
-        search=found, fiducial=fiducial, chain=chain, samples=samples,
+        search=found, fiducial=fiducial, chain=chain, likelihood=binned, samples=samples,
         sample_log_likelihood=binned.log_likelihood(samples), check=check, timings=timings,
         notes=notes,
     )

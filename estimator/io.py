@@ -145,7 +145,9 @@ def _time_grid(times: Array, lines: Lines, name: str, tolerance: float) -> tuple
     integer number of hertz when within ``RATE_SNAP_TOLERANCE`` (1e-6) relative. Each
     step may differ from the median step by less than ``2 * tolerance`` steps and each stamp
     from the grid ``t0 + i/fs`` by less than ``tolerance`` steps; ``t0`` is the first
-    stamp corrected by the median deviation from the grid.
+    stamp corrected by the median deviation from the grid. Microsecond rounding moves
+    the span by at most 1e-6 s, so the snap recovers the integer rate for spans of a
+    second or more.
     """
     step = np.diff(times)
     if (step <= 0).any():
@@ -175,7 +177,7 @@ def _time_grid(times: Array, lines: Lines, name: str, tolerance: float) -> tuple
             f"of {rate:.9g} Hz; {need}"
         )
         _fail(msg, name, "strain", f"line {lines[i]}")
-    return rate, float(times[0] + offset / rate)
+    return float(rate), float(times[0] + offset / rate)
 
 
 def _check_grid(name: str, rate: float | None, start: float | None, what: str = "") -> None:

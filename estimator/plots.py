@@ -396,6 +396,7 @@ def trace_plot(
         pad = 0.05 * (high - low) or 0.5 * abs(low) or 1.0
         ax.set(xlim=(0, n_steps - 1), ylim=(low - pad, high + pad))
         ax.set_ylabel(labels.get(name, name), fontsize=8)
+        ax.yaxis.set_major_formatter(ScalarFormatter(useOffset=False))
         _style(ax)
     if burn_in > 0:
         axes[0].annotate("burn-in (discarded)", xy=(burn_in, 1.0),

@@ -147,7 +147,7 @@ def interpolate_psd(spectrum: NoiseSpectrum, frequencies: ArrayLike) -> NDArray[
     bad = positive & ~(np.isfinite(table_s) & (table_s > 0))
     if bad.any():
         i = int(np.argmax(bad))
-        msg = f"PSD value {table_s[i]:g} at {table_f[i]:g} Hz is not a positive number"
+        msg = f"PSD value {table_s[i]:g} at {table_f[i]:g} Hz is not a positive finite number"
         raise InputError(msg, source=spectrum.source, field="psd")
     out = np.full(f.shape, np.inf)
     out[np.isnan(f)] = np.nan

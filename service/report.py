@@ -105,6 +105,7 @@ def _sig(value: float, digits: int = 4) -> str:
 
 def _decimals_for(width: float) -> int:
     """Decimal places that give ``width`` two significant figures (0 to 12)."""
+    width = float(f"{width:.10g}")  # 0.0999999999 from 1.2 - 1.1 counts as 0.1
     return min(12, max(0, 1 - math.floor(math.log10(width))))
 
 
@@ -175,7 +176,7 @@ def _parameter_row(name: str, entry: Mapping[str, Any], trigger: float | None) -
     if name == "coalescence_time" and trigger is not None:
         offset = format_interval(*(1e3 * (float(entry[k]) - trigger)
                                    for k in ("median", "lower", "upper")))
-        row["extra"] = {"label": "Coalescence time − trigger", "unit": "ms",
+        row["extra"] = {"label": "offset from trigger", "unit": "ms",
                         "unit_display": "ms", **offset}
     return row
 

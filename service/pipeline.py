@@ -1,0 +1,216 @@
+"""Files in, a finished output folder out: the job the command line and the workers share.
+
+The folder holds ``summary.json``, ``samples.csv``, ``report.html`` and the
+plots. Everything is written to a temporary sibling folder first and moved
+into place in one rename, so a folder is either complete or absent.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import os
+import shutil
+import tempfile
+import time
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from estimator import plots
+from estimator.analysis import AnalysisResult, AnalysisSettings, run_analysis
+from estimator.data import NoiseSpectrum, StrainSegment
+from estimator.errors import InputError
+from estimator.io import read_psd, read_strain, sha256_file
+from estimator.products import plot_data
+from estimator.summary import PARAMETER_LABELS, build_summary, derive_samples
+
+from .report import image_data_uri, render_report
+
+__all__ = [
+    "OUTPUT_FILES",
+    "PLOT_FILES",
+    "AnalysisRequest",
+    "analyze_files",
+    "check_output_folder",
+    "write_outputs",
+]
+
+log = logging.getLogger(__name__)
+
+#: Report figure key -> file name in the output folder.
+PLOT_FILES = {
+    "corner": "corner.png",
+    "whitened": "whitened.png",
+    "time_frequency": "time_frequency.png",
+    "spectrum": "spectrum.png",
+    "traces": "traces.png",
+}
+#: Every file an output folder holds.
+OUTPUT_FILES = {"summary.json", "samples.csv", "report.html", *PLOT_FILES.values()}
+#: Columns of samples.csv, in order.
+SAMPLE_COLUMNS = (
+    "chirp_mass", "mass_ratio", "primary_mass", "secondary_mass", "total_mass",
+    "luminosity_distance", "effective_distance", "orientation_factor", "coalescence_time",
+    "redshift", "source_chirp_mass", "source_primary_mass", "source_secondary_mass",
+    "source_total_mass", "snr", "log_likelihood",
+)
+
+Progress = Callable[[str, float, float], None]
+
+
+@dataclass(frozen=True)
+class AnalysisRequest:
+    """One analysis as a user asks for it: files plus settings."""
+
+    strain_path: Path
+    settings: AnalysisSettings
+    psd_path: Path | None = None
+    asd: bool = False
+    sample_rate: float | None = None
+    start_time: float | None = None
+    label: str = ""
+
+
+def _inputs(request: AnalysisRequest, segment: StrainSegment, spectrum: NoiseSpectrum | None
+            ) -> dict[str, Any]:
+    strain = {
+        "file": request.strain_path.name,
+        "sha256": sha256_file(request.strain_path),
+        "sample_rate": segment.sample_rate,
+        "start_time": segment.start_time,
+        "duration": segment.duration,
+        "samples": int(segment.strain.size),
+    }
+    psd: dict[str, Any]
+    if request.psd_path is not None and spectrum is not None:
+        psd = {"file": request.psd_path.name, "sha256": sha256_file(request.psd_path),
+               "kind": "amplitude spectral density" if request.asd else "power spectral density"}
+    else:
+        psd = {"estimated": True,
+               "method": "Welch's method with the median average over the analysed segment"}
+    return {"strain": strain, "psd": psd}
+
+
+def analyze_files(
+    request: AnalysisRequest, out_dir: Path, *, progress: Progress | None = None
+) -> dict[str, Any]:
+    """Read the files, run the analysis, write the output folder; return the summary."""
+    clock = time.perf_counter()
+    check_output_folder(Path(out_dir), OUTPUT_FILES)
+    if progress is not None:
+        progress("reading", 0.0, 0.0)
+    segment = read_strain(request.strain_path, sample_rate=request.sample_rate,
+                          start_time=request.start_time)
+    spectrum = read_psd(request.psd_path, asd=request.asd) if request.psd_path else None
+    inputs = _inputs(request, segment, spectrum)
+    reading = time.perf_counter() - clock
+    result = run_analysis(segment, spectrum, request.settings, progress=progress)
+    result.timings["reading"] = reading
+    label = request.label or request.strain_path.stem
+    return write_outputs(result, out_dir, inputs=inputs, label=label, progress=progress)
+
+
+def _write_samples(path: Path, derived: Mapping[str, np.ndarray]) -> None:
+    table = np.column_stack([derived[c] for c in SAMPLE_COLUMNS])
+    fmt = ["%.10g"] * len(SAMPLE_COLUMNS)
+    fmt[SAMPLE_COLUMNS.index("coalescence_time")] = "%.6f"
+    np.savetxt(path, table, delimiter=",", header=",".join(SAMPLE_COLUMNS), comments="", fmt=fmt)
+
+
+def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folder: Path) -> None:
+    pd = plot_data(result)
+    f_low, f_high = result.data.f_low, result.data.f_high
+    corner_samples = {
+        "chirp_mass": derived["chirp_mass"],
+        "mass_ratio": derived["mass_ratio"],
+        "luminosity_distance": derived["luminosity_distance"],
+        "coalescence_offset": 1e3 * derived["coalescence_offset"],
+    }
+    labels = {
+        "chirp_mass": r"$\mathcal{M}$ [M$_\odot$]",
+        "mass_ratio": "$q$",
+        "luminosity_distance": "$D_L$ [Mpc]",
+        "coalescence_offset": "$t_c$ − trigger [ms]",
+    }
+    plots.corner_plot(corner_samples, folder / PLOT_FILES["corner"], labels=labels)
+    window = (max(-0.6, float(pd.times[0])), 0.1)
+    plots.whitened_plot(pd.times, pd.whitened_data, pd.whitened_model,
+                        folder / PLOT_FILES["whitened"], window=window, band=(f_low, f_high))
+    tf_window = (max(-4.0, float(pd.times[0]), float(pd.track_times[0]) - 0.25), 0.1)
+    plots.time_frequency_plot(pd.times, pd.whitened_data, pd.sample_rate, pd.track_times,
+                              pd.track_frequencies, folder / PLOT_FILES["time_frequency"],
+                              f_low=f_low, f_high=min(f_high, 1024.0), window=tf_window)
+    plots.spectrum_plot(pd.psd_frequencies, pd.psd, pd.data_frequencies, pd.data_asd,
+                        folder / PLOT_FILES["spectrum"], f_low=f_low, f_high=f_high)
+    plots.trace_plot(result.chain.chain, result.chain.names, folder / PLOT_FILES["traces"],
+                     labels={k: PARAMETER_LABELS.get(k, k) for k in result.chain.names},
+                     burn_in=result.chain.burn_in)
+
+
+def write_outputs(
+    result: AnalysisResult,
+    out_dir: Path,
+    *,
+    inputs: Mapping[str, Any],
+    label: str,
+    progress: Progress | None = None,
+) -> dict[str, Any]:
+    """Write summary, samples, plots and report to ``out_dir`` (all or nothing)."""
+    clock = time.perf_counter()
+    if progress is not None:
+        progress("report", 0.0, 0.97)
+    rng = np.random.default_rng([result.seed, 1])
+    derived = derive_samples(result, rng)
+    summary = build_summary(result, derived, inputs=inputs, label=label)
+    out_dir = Path(out_dir)
+    check_output_folder(out_dir, OUTPUT_FILES)
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=out_dir.parent))
+    tmp.chmod(0o755)  # mkdtemp makes it private; the output is an ordinary folder
+    try:
+        _write_samples(tmp / "samples.csv", derived)
+        _make_plots(result, derived, tmp)
+        summary["diagnostics"]["timings_s"]["report"] = round(time.perf_counter() - clock, 3)
+        (tmp / "summary.json").write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
+        images = {key: image_data_uri(tmp / name) for key, name in PLOT_FILES.items()}
+        downloads = {"samples.csv": "samples.csv", "summary.json": "summary.json",
+                     **{name: name for name in PLOT_FILES.values()}}
+        html = render_report(summary, images=images, downloads=downloads)
+        (tmp / "report.html").write_text(html, encoding="utf-8")
+        _replace_folder(tmp, out_dir)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    if progress is not None:
+        progress("done", 1.0, 1.0)
+    return summary
+
+
+def check_output_folder(target: Path, expected: set[str]) -> None:
+    """Refuse to replace a folder that holds anything but an earlier output of ours."""
+    if not target.exists():
+        return
+    if not target.is_dir():
+        msg = f"output {target} exists and is not a folder; choose another --out"
+        raise InputError(msg, source=str(target), field="out")
+    foreign = sorted(p.name for p in target.iterdir() if p.name not in expected)
+    if foreign:
+        msg = (f"output folder {target} already holds other files ({', '.join(foreign[:3])}"
+               f"{', ...' if len(foreign) > 3 else ''}); choose an empty or new folder")
+        raise InputError(msg, source=str(target), field="out")
+
+
+def _replace_folder(new: Path, target: Path) -> None:
+    """Move ``new`` to ``target``; an earlier output at ``target`` is replaced as a whole."""
+    if target.exists():
+        old = target.with_name(f".{target.name}.old-{os.getpid()}")
+        target.rename(old)
+        new.rename(target)
+        shutil.rmtree(old, ignore_errors=True)
+    else:
+        new.rename(target)
+
