@@ -57,7 +57,7 @@ class AnalysisSettings:
     distance_max: float = 10_000.0
     time_window: float = 0.1
     seed: int | None = None
-    walkers: int = 64
+    walkers: int = 32
     max_steps: int = 20_000
     target_effective_samples: float = 2000.0
     n_bins: int = 96

@@ -93,6 +93,9 @@ def _parse_table(
     tokens = np.flatnonzero(solid[1:] > solid[:-1]) + 1  # first byte of every token
     if solid.size and solid[0]:
         tokens = np.concatenate(([0], tokens))
+    nodata = f"no data lines (only comments, blank lines or a header); expected {expected}"
+    if tokens.size == 0:
+        _fail(nodata, name, field)
     line_of = np.searchsorted(newlines, tokens)
     counts = np.bincount(line_of, minlength=starts.size)
     first = tokens[np.minimum(np.searchsorted(line_of, np.arange(starts.size)), tokens.size - 1)]
@@ -106,8 +109,7 @@ def _parse_table(
     if data.size and not any(_is_number(t) for t in line(data[0]).split()):
         ignored, data = np.sort(np.append(ignored, data[0])), data[1:]  # the header line
     if data.size == 0:
-        msg = f"no data lines (only comments, blank lines or a header); expected {expected}"
-        _fail(msg, name, field)
+        _fail(nodata, name, field)
     for i in ignored:  # blank out comments and the header so that only numbers remain
         text[starts[i] : ends[i]] = b" " * int(ends[i] - starts[i])
     counts = counts[data]

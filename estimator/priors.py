@@ -42,8 +42,9 @@ common practice), change variables ``(d, w) -> (d_eff, w)``, ``d = w d_eff``
 (Jacobian ``w``): ``p(d_eff, w) ∝ d_eff^2 w^3 p(w)`` on ``w d_eff <= distance_max``,
 so ``p(d_eff) ∝ d_eff^2 G(min(1, distance_max / d_eff))`` with
 ``G(u) = ∫_0^u w^3 p(w) dw``, and ``p(w | d_eff) ∝ w^3 p(w)`` on ``[0, u]``. As
-``P(w < x) ≈ 2 x^2 ln(1/x)`` for small ``x``, the tail falls as ``d_eff^-3 ln d_eff``;
-we cut it at ``100 distance_max``, which removes a fraction CUTFRAC of the prior mass.
+``P(w < x) = 2 x^2 [ln(1/x) + O(1)]`` for small ``x`` (from ``P(R <= r) ≈ r^2``), the
+tail falls as ``d_eff^-3 ln d_eff``; we cut it at ``100 distance_max``, which removes
+a fraction 7.2e-4 of the prior mass (computed from the table).
 """
 
 from __future__ import annotations
@@ -99,7 +100,8 @@ def _factor_cdf(r: Array) -> Array:
     cos2, sin2 = np.cos(a) ** 2, np.sin(a) ** 2
     num = np.maximum(4.0 * rr**2 - cos2, 0.0)
     den = 1.0 + sin2 + np.sqrt((1.0 + sin2) ** 2 + cos2 * num)
-    return np.minimum((2.0 / np.pi) * np.sum(np.sqrt(num / den) * jac, axis=1), 1.0)
+    cdf: Array = np.minimum((2.0 / np.pi) * np.sum(np.sqrt(num / den) * jac, axis=1), 1.0)
+    return cdf
 
 
 @lru_cache(maxsize=1)
@@ -112,7 +114,8 @@ def _orientation_table() -> _OrientationTable:
     ``P(L1 + L2 <= s) = Σ_j m_j [F_L(s - x_j) + F_L(s - x_{j+1})] / 2``
     (trapezoid rule for the Stieltjes integral, error ``O(h^2)``), by FFT. ``G`` is
     the same trapezoid sum of ``w^3`` over the masses of ``w``. Compared with a grid
-    four times finer the CDF is off by < ACC and ``<w^2>`` by < MOMACC.
+    four times finer the CDF at the nodes is off by 1.1e-7 (linear interpolation
+    between nodes adds up to 3e-7), ``<w^2> = 4/25`` by a relative 2.3e-7.
     """
     h = np.log(2.0) / _STEPS_PER_OCTAVE
     k = int(np.ceil(np.log(0.5 / _R_MIN) / h))
@@ -154,6 +157,105 @@ class Prior(Protocol):
     def bounds(self) -> dict[str, tuple[float, float]]:
         """Support ``(low, high)`` of each sampled parameter."""
         ...
+
+    def log_prob(self, params: Mapping[str, Array]) -> Array:
+        """Log prior density, shape ``(n,)``, ``-inf`` outside the support."""
+        ...
+
+    def sample(self, rng: np.random.Generator, n: int) -> dict[str, Array]:
+        """``n`` independent draws from the prior, keyed by ``names``."""
+        ...
+
+
+def _check_interval(name: str, value: tuple[float, float], low: float, high: float) -> None:
+    lo, hi = (float(v) for v in value)
+    if not (np.isfinite(lo) and np.isfinite(hi) and low <= lo < hi <= high):
+        raise InputError(
+            f"{name} bounds ({lo:g}, {hi:g}) are not an increasing pair inside "
+            f"[{low:g}, {high:g}]; give (low, high) with low < high",
+            field=name,
+        )
+
+
+@dataclass(frozen=True)
+class InspiralPrior:
+    """Prior over ``(chirp_mass, mass_ratio, effective_distance, coalescence_time)``.
+
+    Attributes
+    ----------
+    chirp_mass
+        ``(low, high)`` detector-frame chirp mass, Msun.
+    mass_ratio
+        ``(low, high)`` of ``q = m2/m1``, with ``0 < low < high <= 1``.
+    component_mass
+        ``(low, high)`` for each of ``m1`` and ``m2``, detector-frame Msun.
+    distance_max
+        Largest luminosity distance, Mpc.
+    time_window
+        Half-width of the uniform coalescence-time prior around the trigger time, s.
+
+    Notes
+    -----
+    Densities are given in the module docstring with their sources.
+    ``log_prob`` is unnormalised (correct up to an additive constant), which is
+    all an MCMC sampler needs.
+    """
+
+    chirp_mass: tuple[float, float]
+    mass_ratio: tuple[float, float]
+    component_mass: tuple[float, float]
+    distance_max: float
+    time_window: float = 0.1
+
+    def __post_init__(self) -> None:
+        _check_interval("chirp_mass", self.chirp_mass, np.finfo(float).tiny, np.inf)
+        _check_interval("mass_ratio", self.mass_ratio, np.finfo(float).tiny, 1.0)
+        _check_interval("component_mass", self.component_mass, np.finfo(float).tiny, np.inf)
+        for name in ("distance_max", "time_window"):
+            value = float(getattr(self, name))
+            if not (np.isfinite(value) and value > 0.0):
+                raise InputError(
+                    f"{name} is {value:g}; it must be a positive finite number", field=name
+                )
+        (m1_lo, m1_hi), (m2_lo, m2_hi) = self._mass_box()
+        if m1_lo > m1_hi or m2_lo > m2_hi:
+            raise InputError(
+                f"chirp_mass {self.chirp_mass} and mass_ratio {self.mass_ratio} need component "
+                f"masses m1 in [{m1_lo:g}, {m1_hi:g}] and m2 in [{m2_lo:g}, {m2_hi:g}], outside "
+                f"component_mass {self.component_mass}; widen one of the ranges",
+                field="component_mass",
+            )
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        """``("chirp_mass", "mass_ratio", "effective_distance", "coalescence_time")``."""
+        return ("chirp_mass", "mass_ratio", "effective_distance", "coalescence_time")
+
+    @property
+    def bounds(self) -> dict[str, tuple[float, float]]:
+        """Support of each sampled parameter (Msun, 1, Mpc, s)."""
+        return {
+            "chirp_mass": (float(self.chirp_mass[0]), float(self.chirp_mass[1])),
+            "mass_ratio": (float(self.mass_ratio[0]), float(self.mass_ratio[1])),
+            "effective_distance": (0.0, EFFECTIVE_DISTANCE_CUTOFF * self.distance_max),
+            "coalescence_time": (-self.time_window, self.time_window),
+        }
+
+    def _mass_box(self) -> tuple[tuple[float, float], tuple[float, float]]:
+        """Ranges of ``m1`` and ``m2`` that contain the whole mass support.
+
+        ``m1 = Mc A(q)`` falls with ``q`` and ``m2 = Mc (1+q)^{1/5} q^{2/5}`` rises with it.
+        """
+        (mc_lo, mc_hi), (q_lo, q_hi), (c_lo, c_hi) = (
+            self.chirp_mass,
+            self.mass_ratio,
+            self.component_mass,
+        )
+        m1_lo = float(component_masses(mc_lo, q_hi)[0])
+        m1_hi = float(component_masses(mc_hi, q_lo)[0])
+        m2_lo = float(component_masses(mc_lo, q_lo)[1])
+        m2_hi = float(component_masses(mc_hi, q_hi)[1])
+        return ((max(c_lo, m1_lo), min(c_hi, m1_hi)), (max(c_lo, m2_lo), min(c_hi, m2_hi)))
 
     def log_prob(self, params: Mapping[str, Array]) -> Array:
         """Unnormalised log prior density.

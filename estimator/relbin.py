@@ -63,6 +63,7 @@ class _Binned:
     edges: Array  # edge frequencies, (nb+1,)
     centers: Array
     widths: Array
+    inverse_widths: Array
     first: NDArray[np.intp]  # index of the first frequency of each bin
     a0: NDArray[np.complex128]
     a1: NDArray[np.complex128]
@@ -138,6 +139,7 @@ class RelativeBinningLikelihood:
                     edges=edges,
                     centers=centers,
                     widths=np.diff(edges),
+                    inverse_widths=1.0 / np.diff(edges),
                     first=idx[:-1],
                     a0=a0,
                     a1=a1,
@@ -164,25 +166,30 @@ class RelativeBinningLikelihood:
         f_isco = isco_frequency(mc * symmetric_mass_ratio(q) ** (-0.6))
         z = np.zeros((len(self._bins), mc.size), dtype=complex)
         hh = np.zeros((len(self._bins), mc.size))
+        rows = np.arange(mc.size)
         for i, b in enumerate(self._bins):
             f_all = b.data.frequencies
             shift = tc + self.reference_time - b.data.epoch
-            psi = b.basis.phase(mc, q) + 2.0 * np.pi * shift[:, None] * b.edges[None, :]
-            # r = h / h0 at the edges (no ISCO cut: the cut is applied to the sums).
-            ratio = amp[:, None] * np.exp(-1j * (psi - b.phase0_edges[None, :]))
+            # Phase of h* / h0* = exp(+i (psi - psi0)) at the edges, one matrix product.
+            x = b.basis.phase(mc, q)
+            x += np.outer(2.0 * np.pi * shift, b.edges)
+            x -= b.phase0_edges
+            ratio = amp[:, None] * (np.cos(x) + 1j * np.sin(x))  # conj(h/h0), no ISCO cut
             r0 = 0.5 * (ratio[:, :-1] + ratio[:, 1:])
-            r1 = (ratio[:, 1:] - ratio[:, :-1]) / b.widths[None, :]
-            # Bins wholly below the ISCO frequency count in full, the one it cuts in part.
+            r1 = (ratio[:, 1:] - ratio[:, :-1]) * b.inverse_widths
+            terms = b.a0 * r0 + b.a1 * r1
             n_keep = np.searchsorted(f_all, f_isco, side="right")
-            cut = np.maximum(np.searchsorted(b.first, n_keep, side="right") - 1, 0)
-            full = np.arange(b.first.size)[None, :] < cut[:, None]
-            terms = b.a0[None, :] * np.conj(r0) + b.a1[None, :] * np.conj(r1)
-            z[i] = np.sum(np.where(full, terms, 0.0), axis=1)
-            rows = np.arange(mc.size)
-            lo_k = b.first[cut]
-            p0 = b.c0[n_keep] - b.c0[lo_k]
-            p1 = b.c1[n_keep] - b.c1[lo_k] - b.centers[cut] * p0
-            z[i] += p0 * np.conj(r0[rows, cut]) + p1 * np.conj(r1[rows, cut])
+            if n_keep.min() >= f_all.size:
+                z[i] = terms.sum(axis=1)  # every ISCO above the band
+            else:
+                # Bins wholly below the ISCO count in full, the one it cuts in part.
+                cut = np.maximum(np.searchsorted(b.first, n_keep, side="right") - 1, 0)
+                full = np.arange(b.first.size)[None, :] < cut[:, None]
+                lo_k = b.first[cut]
+                p0 = b.c0[n_keep] - b.c0[lo_k]
+                p1 = b.c1[n_keep] - b.c1[lo_k] - b.centers[cut] * p0
+                z[i] = np.sum(np.where(full, terms, 0.0), axis=1)
+                z[i] += p0 * r0[rows, cut] + p1 * r1[rows, cut]
             hh[i] = amp**2 * np.where(n_keep > 0, b.cumulative_norm[np.maximum(n_keep - 1, 0)], 0.0)
         return z, hh
 

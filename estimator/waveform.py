@@ -153,25 +153,49 @@ class PhaseBasis:
         self.basis = np.ascontiguousarray(np.array(rows))
 
     def coefficients(self, chirp_mass: ArrayLike, mass_ratio: ArrayLike) -> Array:
-        """Mass-dependent coefficients, shape ``(n, n_basis)``."""
+        """Mass-dependent coefficients, shape ``(n, n_basis)``.
+
+        Every ``a_k`` of :func:`phase_coefficients` is a polynomial of degree at
+        most 3 in ``eta``; its coefficients are found once (exactly, from four
+        evaluations) so that this is a few array operations for any ``n``.
+        """
         mc = np.atleast_1d(np.asarray(chirp_mass, dtype=float))
         q = np.atleast_1d(np.asarray(mass_ratio, dtype=float))
         eta = symmetric_mass_ratio(q)
-        total = mc * eta ** (-0.6) * MSUN_SECONDS
-        c = np.cbrt(np.pi * total)
-        log_c = np.log(c)
-        pre = 3.0 / (128.0 * eta)
-        coeffs = phase_coefficients(eta)
-        out = np.empty((mc.size, len(self._layout)))
-        for j, (k, is_log) in enumerate(self._layout):
-            a_k, b_k = coeffs[k]
-            scale = pre * c ** (k - 5)
-            out[:, j] = scale * (b_k if is_log else a_k + b_k * log_c)
-        return out
+        log_c = (np.log(np.pi * MSUN_SECONDS) + np.log(mc) - 0.6 * np.log(eta)) / 3.0
+        poly, log_poly, powers = _coefficient_tables(self._layout)
+        eta_powers = np.stack([np.ones_like(eta), eta, eta**2, eta**3], axis=1)
+        scale = (3.0 / (128.0 * eta))[:, None] * np.exp(np.outer(log_c, powers))
+        return np.asarray(scale * (eta_powers @ poly + log_c[:, None] * (eta_powers @ log_poly)))
 
     def phase(self, chirp_mass: ArrayLike, mass_ratio: ArrayLike) -> Array:
         """PN phase, shape ``(n, nf)``, radians (as :func:`taylorf2_phase`)."""
         return np.asarray(self.coefficients(chirp_mass, mass_ratio) @ self.basis)
+
+
+_TABLES: dict[tuple[tuple[int, bool], ...], tuple[Array, Array, Array]] = {}
+
+
+def _coefficient_tables(layout: list[tuple[int, bool]]) -> tuple[Array, Array, Array]:
+    """Cubic-in-eta coefficient tables ``(4, n_basis)`` of the plain and ``ln c`` parts,
+    and the powers ``k - 5``, for a :class:`PhaseBasis` layout."""
+    key = tuple(layout)
+    if key not in _TABLES:
+        nodes = np.array([0.0, 1.0, 2.0, 3.0])
+        coeffs = phase_coefficients(nodes)
+        plain = np.zeros((4, len(layout)))
+        with_log = np.zeros((4, len(layout)))
+        for j, (k, is_log) in enumerate(layout):
+            a_k, b_k = coeffs[k]
+            if is_log:
+                plain[:, j] = b_k
+            else:
+                plain[:, j] = a_k
+                with_log[:, j] = b_k
+        vander = np.vander(nodes, 4, increasing=True)
+        powers = np.array([k - 5.0 for k, _ in layout])
+        _TABLES[key] = (np.linalg.solve(vander, plain), np.linalg.solve(vander, with_log), powers)
+    return _TABLES[key]
 
 
 def taylorf2_phase(

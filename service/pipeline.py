@@ -196,12 +196,12 @@ def check_output_folder(target: Path, expected: set[str]) -> None:
         return
     if not target.is_dir():
         msg = f"output {target} exists and is not a folder; choose another --out"
-        raise InputError(msg, source=str(target), field="out")
+        raise InputError(msg, field="out")
     foreign = sorted(p.name for p in target.iterdir() if p.name not in expected)
     if foreign:
         msg = (f"output folder {target} already holds other files ({', '.join(foreign[:3])}"
                f"{', ...' if len(foreign) > 3 else ''}); choose an empty or new folder")
-        raise InputError(msg, source=str(target), field="out")
+        raise InputError(msg, field="out")
 
 
 def _replace_folder(new: Path, target: Path) -> None:

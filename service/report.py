@@ -18,7 +18,7 @@ from typing import Any
 import jinja2
 
 __all__ = [
-    "PLOTS",
+    "PLOT_ORDER",
     "TEMPLATES_DIR",
     "build_context",
     "format_interval",
@@ -53,35 +53,8 @@ GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("Signal strength", "", ("snr",)),
 )
 UNITS: Mapping[str, str] = {"Msun": "M☉", "": "—"}
-#: Plot key -> (title, caption: what it shows and what to look for).
-PLOTS: Mapping[str, tuple[str, str, str]] = {
-    "corner": ("Posterior distribution",
-               "One-parameter histograms on the diagonal (dashed: median and 90% interval "
-               "bounds) and 50% / 90% credible regions below it.",
-               "smooth, single-peaked shapes. A distribution cut off sharply at one side is "
-               "bounded by the prior range rather than by the data."),
-    "whitened": ("Whitened data near coalescence",
-                 "The data divided by the noise amplitude at each frequency, with the "
-                 "best-fit model drawn over it.",
-                 "large excursions in the data that the model does not follow, a sign of a "
-                 "noise transient. At modest SNR the signal itself is rarely visible by eye."),
-    "time_frequency": ("Time-frequency energy",
-                       "Energy of the whitened data, normalised so that Gaussian noise "
-                       "averages 1; the dashed line is the best-fit model's frequency track.",
-                       "excess energy along the track, rising to coalescence at time 0. "
-                       "Bright, short blobs off the track spanning many frequencies are "
-                       "noise transients that can bias the estimate."),
-    "spectrum": ("Noise spectrum",
-                 "Amplitude spectral density of the analysed data and of the noise model "
-                 "used by the likelihood; shaded: the analysis band.",
-                 "the data following the model across the band. Narrow lines are usual; "
-                 "a broad mismatch in level makes the intervals unreliable."),
-    "traces": ("Sampler traces",
-               "Every walker's position against step for each sampled parameter; shaded: "
-               "burn-in, discarded.",
-               "one well-mixed, level band after burn-in. Drifts, or walkers stuck apart "
-               "from the rest, mean the chain has not converged."),
-}
+#: Plot keys in report order; their titles and captions live in templates/figures.html.
+PLOT_ORDER = ("corner", "whitened", "time_frequency", "spectrum", "traces")
 _SAFE_SCHEMES = ("http", "https", "data", "file")
 
 
@@ -305,10 +278,8 @@ def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
     if share_url is not None and not share_url.lower().startswith(("http://", "https://")):
         msg = f"share_url {share_url[:40]!r} must be an absolute http(s) URL"
         raise ValueError(msg)
-    plots = [{"key": k, "src": _checked_link(images[k], f"image {k!r}"),
-              "title": PLOTS.get(k, (k, "", ""))[0], "caption": PLOTS.get(k, (k, "", ""))[1],
-              "look_for": PLOTS.get(k, (k, "", ""))[2]}
-             for k in [*PLOTS, *(k for k in images if k not in PLOTS)] if k in images]
+    keys = [k for k in PLOT_ORDER if k in images] + [k for k in images if k not in PLOT_ORDER]
+    plots = [{"key": k, "src": _checked_link(images[k], f"image {k!r}")} for k in keys]
     software = summary.get("software", {})
     return {
         "label": str(summary["label"]),

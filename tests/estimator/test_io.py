@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import hashlib
-import time
 from pathlib import Path
 
 import numpy as np
@@ -146,6 +145,8 @@ def test_missing_empty_and_comment_only_files(tmp_path: Path) -> None:
     assert "empty" in str(_error(tmp_path / "empty.txt"))
     (tmp_path / "notes.txt").write_text("# only\n\n% comments\ntime strain\n")
     assert "no data lines" in str(_error(tmp_path / "notes.txt"))
+    (tmp_path / "commas.txt").write_text(",,;\n,\n")
+    assert "no data lines" in str(_error(tmp_path / "commas.txt"))
 
 
 def test_wrong_column_count(tmp_path: Path) -> None:
@@ -319,7 +320,8 @@ def test_sha256_matches_the_published_test_vector(tmp_path: Path) -> None:
 
 
 @pytest.mark.slow
-def test_a_million_line_file_reads_fast(tmp_path: Path) -> None:
+def test_a_million_line_file_reads_exactly(tmp_path: Path) -> None:
+    """A 256 s x 4096 Hz two-column file (the read speed is measured in benchmarks/)."""
     n = 256 * 4096
     h = _strain(n)
     t = GPS + np.arange(n) / 4096.0
@@ -329,13 +331,7 @@ def test_a_million_line_file_reads_fast(tmp_path: Path) -> None:
         + "\n".join(f"{a:.6f},{b!r}" for a, b in zip(t.tolist(), h.tolist(), strict=True))
         + "\n"
     )
-    # CPU time, not wall time, so that other processes on a shared machine do not count
-    wall, cpu = time.perf_counter(), time.process_time()
     seg = read_strain(path)
-    wall, elapsed = time.perf_counter() - wall, time.process_time() - cpu
-    print(
-        f"read {n} lines ({path.stat().st_size / 1e6:.0f} MB): {elapsed:.2f} s CPU, {wall:.2f} s wall"
-    )
     assert seg.sample_rate == 4096.0
+    assert seg.start_time == GPS
     np.testing.assert_array_equal(seg.strain, h)
-    assert elapsed < 3.0

@@ -136,7 +136,8 @@ class Structure(HTMLParser):
             self.stack.append(tag)
 
     def handle_endtag(self, tag: str) -> None:
-        assert self.stack and self.stack[-1] == tag, f"</{tag}> closes <{self.stack[-1:]}>"
+        assert self.stack, f"</{tag}> without an open tag"
+        assert self.stack[-1] == tag, f"</{tag}> closes <{self.stack[-1]}>"
         self.stack.pop()
         if tag == "tr":
             self.row = None
@@ -172,7 +173,8 @@ def test_format_interval_examples() -> None:
     out = format_interval(40.1, 24.6, 52.3)  # narrower side 12.2 -> two figures, 0 decimals
     assert (out["median"], out["minus"], out["plus"]) == ("40", MINUS + "16", "+12")
     out = format_interval(-3.25, -3.5, -3.0)
-    assert out["median"] == MINUS + "3.25" and out["lower"] == MINUS + "3.50"
+    assert out["median"] == MINUS + "3.25"
+    assert out["lower"] == MINUS + "3.50"
     assert format_interval(2.0, 2.0, 2.0)["median"] == "2.000"
     assert format_interval(math.nan, 0.0, 1.0)["median"] == "n/a"
 
@@ -220,9 +222,11 @@ def test_headline_and_neutron_star_probability(images: dict[str, str]) -> None:
     summary = make_summary()
     summary["probabilities"] = {"secondary_below_3_msun": 0.4, "primary_below_3_msun": 0.004}
     text = text_of(parse(render_report(summary, images=images)))
-    assert "Neutron star possible 40%" in text and "both bodies: < 1%" in text
+    assert "Neutron star possible 40%" in text
+    assert "both bodies: < 1%" in text
     # offset from the trigger in ms: 12.342 (-0.281 / +0.306) -> two figures
-    assert "12.34" in text and f"{MINUS}0.28 / +0.31" in text
+    assert "12.34" in text
+    assert f"{MINUS}0.28 / +0.31" in text
 
 
 def test_label_is_escaped(images: dict[str, str]) -> None:
@@ -230,7 +234,8 @@ def test_label_is_escaped(images: dict[str, str]) -> None:
     summary["label"] = "<script>alert(1)</script>"
     summary["notes"] = ['<img src=x onerror="alert(2)">']
     html = render_report(summary, images=images)
-    assert "<script>alert(1)" not in html and "<img src=x" not in html
+    assert "<script>alert(1)" not in html
+    assert "<img src=x" not in html
     assert "&lt;script&gt;alert(1)&lt;/script&gt;" in html
     parse(html)
 
@@ -244,9 +249,12 @@ def test_optional_parts_may_be_missing(images: dict[str, str]) -> None:
     html = render_report(summary, images={})
     doc = parse(html)
     text = text_of(doc)
-    assert "<script" not in html and "Copy share link" not in html
-    assert 'id="downloads"' not in html and "Maximum-likelihood" not in html
-    assert "No plots were made" in text and doc.images == []
+    assert "<script" not in html
+    assert "Copy share link" not in html
+    assert 'id="downloads"' not in html
+    assert "Maximum-likelihood" not in html
+    assert "No plots were made" in text
+    assert doc.images == []
     assert "estimated from the strain (Welch's method, 4 s segments)" in text
 
 
@@ -265,12 +273,16 @@ def test_images_downloads_and_share_link(images: dict[str, str], tmp_path: Path)
                          share_url="https://example.org/r/abc?x=1&y=2")
     doc = parse(html)
     assert len(doc.images) == 5
+    assert html.count("<b>Look for:</b>") == 5
+    extra = render_report(make_summary(), images={"sky_map": images["corner"]})
+    assert "<h3>Sky map</h3>" in extra
     prefix = "data:image/png;base64,"
     assert all(src.startswith(prefix) for src in doc.images)
     assert base64.b64decode(doc.images[0][len(prefix):]) == (tmp_path / "tiny.png").read_bytes()
     for href in downloads.values():
         assert f'href="{href}"' in html
-    assert "Copy share link" in html and "<script>" in html
+    assert "Copy share link" in html
+    assert "<script>" in html
     assert 'value="https://example.org/r/abc?x=1&amp;y=2"' in html
     with pytest.raises(ValueError, match="http"):
         render_report(make_summary(), images=images, share_url="javascript:alert(1)")
@@ -279,18 +291,29 @@ def test_images_downloads_and_share_link(images: dict[str, str], tmp_path: Path)
 
 
 def test_diagnostics_and_alerts(images: dict[str, str]) -> None:
-    text = text_of(parse(render_report(make_summary(), images=images)))
-    assert "4000 × 32" in text and "1,705" in text and "0.34" in text
-    assert "63.8" in text and "pass" in text and "0.0031" in text
+    html = render_report(make_summary(), images=images)
+    text = text_of(parse(html))
+    assert "4000 × 32" in text
+    assert "1,705" in text
+    assert "0.34" in text
+    assert "63.8" in text
+    assert '<span class="badge pass">pass</span>' in html
+    assert '<span class="badge pass">yes</span>' in html
+    assert "0.0031" in text
     assert "24.34 s" in text  # total of the stage timings
-    assert "9f2c" * 16 in text and "drill-0042_psd.txt" in text and "chirpcast 0.1.0" in text
+    assert "9f2c" * 16 in text
+    assert "drill-0042_psd.txt" in text
+    assert "chirpcast 0.1.0" in text
     assert "did not meet its convergence" not in text
     summary = copy.deepcopy(make_summary())
     summary["diagnostics"]["converged"] = False
     summary["diagnostics"]["likelihood_check"]["passed"] = False
-    text = text_of(parse(render_report(summary, images=images)))
+    html = render_report(summary, images=images)
+    text = text_of(parse(html))
     assert "did not meet its convergence criterion" in text
-    assert "disagreed with the exact likelihood" in text and "fail" in text
+    assert "disagreed with the exact likelihood" in text
+    assert '<span class="badge fail">fail</span>' in html
+    assert '<span class="badge fail">no</span>' in html
 
 
 def test_image_data_uri_rejects_non_png(tmp_path: Path) -> None:
