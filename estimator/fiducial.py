@@ -76,7 +76,7 @@ def find_fiducial(
     time_window: float,
     n_bins: int,
     rounds: int = 3,
-    exact_iterations: int = 80,
+    exact_iterations: int = 40,
     progress: Callable[[float], None] | None = None,
 ) -> Fiducial:
     """Maximise the likelihood over (chirp mass, q, t_c), distance profiled out.

@@ -9,11 +9,13 @@ from __future__ import annotations
 
 import json
 import logging
+import multiprocessing as mp
 import os
 import shutil
 import tempfile
 import time
 from collections.abc import Callable, Mapping
+from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -122,6 +124,7 @@ def _write_samples(path: Path, derived: Mapping[str, np.ndarray]) -> None:
 
 
 def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folder: Path) -> None:
+    """Draw the five report figures; the corner plot (the slowest) in a second process."""
     pd = plot_data(result)
     f_low, f_high = result.data.f_low, result.data.f_high
     corner_samples = {
@@ -136,7 +139,9 @@ def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folde
         "luminosity_distance": "$D_L$ [Mpc]",
         "coalescence_offset": "$t_c$ − trigger [ms]",
     }
-    plots.corner_plot(corner_samples, folder / PLOT_FILES["corner"], labels=labels)
+    corner_args = (corner_samples, folder / PLOT_FILES["corner"])
+    pool = _plot_pool()
+    pending = pool.submit(_corner, *corner_args, labels) if pool is not None else None
     window = (max(-0.6, float(pd.times[0])), 0.1)
     plots.whitened_plot(pd.times, pd.whitened_data, pd.whitened_model,
                         folder / PLOT_FILES["whitened"], window=window, band=(f_low, f_high))
@@ -149,6 +154,25 @@ def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folde
     plots.trace_plot(result.chain.chain, result.chain.names, folder / PLOT_FILES["traces"],
                      labels={k: PARAMETER_LABELS.get(k, k) for k in result.chain.names},
                      burn_in=result.chain.burn_in)
+    if pending is not None:
+        pending.result(timeout=300)
+    else:
+        _corner(*corner_args, labels)
+
+
+def _corner(samples: Mapping[str, np.ndarray], path: Path, labels: Mapping[str, str]) -> Path:
+    return plots.corner_plot(samples, path, labels=labels)
+
+
+_POOL: ProcessPoolExecutor | None = None
+
+
+def _plot_pool() -> ProcessPoolExecutor | None:
+    """One long-lived helper process for plots, where the platform can fork and has a core."""
+    global _POOL
+    if _POOL is None and (os.cpu_count() or 1) > 1 and "fork" in mp.get_all_start_methods():
+        _POOL = ProcessPoolExecutor(1, mp_context=mp.get_context("fork"))
+    return _POOL
 
 
 def write_outputs(

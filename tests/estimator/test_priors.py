@@ -14,11 +14,11 @@ import pytest
 from scipy import integrate, stats
 
 from estimator.errors import InputError
+from estimator.orientation import orientation_table as _orientation_table
 from estimator.priors import (
     EFFECTIVE_DISTANCE_CUTOFF,
     InspiralPrior,
     Prior,
-    _orientation_table,
     draw_orientation,
 )
 

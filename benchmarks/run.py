@@ -1,0 +1,275 @@
+"""chirpcast benchmark: likelihood cost, files-to-report wall time, sampling-time flatness.
+
+Run from the repository root::
+
+    /work/venv/bin/python benchmarks/run.py            # full run (several minutes)
+    /work/venv/bin/python benchmarks/run.py --quick    # one repeat, no 512 s segment
+    /work/venv/bin/python benchmarks/run.py --only likelihood
+
+Prints a table on stdout, progress on stderr, and writes ``benchmarks/results.json``
+(machine facts plus every measured figure). A benchmark, not a test: nothing here
+fails when a goal is missed; the table says whether each aim was met on this machine.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import statistics
+import sys
+import tempfile
+import time
+from collections.abc import Callable
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+import emcee
+import numpy as np
+import scipy
+
+from cases import (
+    BNS,
+    HEAVY_8S,
+    HEAVY_32S,
+    SCALING_F_LOW,
+    SPECTRUM,
+    Drill,
+    make_drill,
+    scaling_source,
+    write_drill_files,
+)
+from estimator.analysis import AnalysisSettings, run_analysis
+from estimator.conditioning import condition
+from estimator.io import read_strain
+from estimator.likelihood import ExactLikelihood
+from estimator.relbin import RelativeBinningLikelihood
+from estimator.validation import default_f_high
+from service.drill import write_strain
+from service.pipeline import AnalysisRequest, analyze_files
+from table import format_table
+
+__all__ = ["bench_e2e", "bench_likelihood", "bench_scaling", "machine_facts", "main"]
+
+HERE = Path(__file__).resolve().parent
+SECTIONS = ("likelihood", "e2e", "scaling")
+#: Parameter sets per likelihood batch, and the fewest repeats the median is taken over.
+BATCH = 32
+MIN_LIKELIHOOD_REPEATS = 7
+#: Spread of the likelihood batch around the fiducial (Gaussian sd): chirp mass
+#: (relative), mass ratio, effective distance (relative), coalescence time (s).
+SPREAD = {"chirp_mass": 3e-5, "mass_ratio": 0.01, "effective_distance": 0.05,
+          "coalescence_time": 1e-4}
+_T0 = time.perf_counter()
+
+
+def say(message: str) -> None:
+    """A progress line on stderr, stamped with the seconds since the run began."""
+    sys.stderr.write(f"[{time.perf_counter() - _T0:7.1f} s] {message}\n")
+    sys.stderr.flush()
+
+
+def load() -> list[float]:
+    """The 1, 5 and 15 minute load averages."""
+    return [round(x, 2) for x in os.getloadavg()]
+
+
+def machine_facts() -> dict[str, Any]:
+    """Date, CPUs, versions and thread settings of this run."""
+    threads = {k: os.environ[k] for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS",
+                                          "MKL_NUM_THREADS") if k in os.environ}
+    return {
+        "date": datetime.now(UTC).isoformat(timespec="seconds"),
+        "cpu_count": os.cpu_count(),
+        "cpus_usable": len(os.sched_getaffinity(0)),
+        "platform": platform.platform(),
+        "processor": platform.machine(),
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "scipy": scipy.__version__,
+        "emcee": emcee.__version__,
+        "thread_settings": threads,
+        "load_average_start": load(),
+    }
+
+
+def _timed(call: Callable[[], object], inner: int = 1) -> float:
+    clock = time.perf_counter()
+    for _ in range(inner):
+        call()
+    return (time.perf_counter() - clock) / inner
+
+
+def bench_likelihood(drill: Drill, repeats: int) -> dict[str, Any]:
+    """Per-parameter-set cost of the exact and the binned likelihood, same run, same batch."""
+    repeats = max(repeats, MIN_LIKELIHOOD_REPEATS)
+    seg, src = drill.segment, drill.source
+    data = condition(seg, SPECTRUM, f_low=src.f_low, f_high=default_f_high(seg, SPECTRUM))
+    reference = drill.trigger_time
+    inj = drill.injection
+    fiducial = {"chirp_mass": inj.chirp_mass, "mass_ratio": inj.mass_ratio,
+                "effective_distance": inj.effective_distance,
+                "coalescence_time": inj.coalescence_time - reference}
+    n_bins = AnalysisSettings(trigger_time=reference).n_bins
+    clock = time.perf_counter()
+    exact = ExactLikelihood([data], reference)
+    exact_setup = time.perf_counter() - clock
+    clock = time.perf_counter()
+    binned = RelativeBinningLikelihood([data], reference, fiducial, n_bins=n_bins)
+    binned_setup = time.perf_counter() - clock
+    rng = np.random.default_rng(7)
+    noise = {k: rng.standard_normal(BATCH) for k in SPREAD}
+    params = {
+        "chirp_mass": fiducial["chirp_mass"] * (1.0 + SPREAD["chirp_mass"] * noise["chirp_mass"]),
+        "mass_ratio": np.clip(fiducial["mass_ratio"] + SPREAD["mass_ratio"] * noise["mass_ratio"],
+                              0.1, 1.0),
+        "effective_distance": fiducial["effective_distance"]
+        * (1.0 + SPREAD["effective_distance"] * noise["effective_distance"]),
+        "coalescence_time": fiducial["coalescence_time"]
+        + SPREAD["coalescence_time"] * noise["coalescence_time"],
+    }
+    ln_exact = exact.log_likelihood(params)  # also the warm-up calls
+    ln_binned = binned.log_likelihood(params)
+    # The binned batch takes well under a millisecond: time enough calls for ~20 ms.
+    inner = int(np.clip(np.ceil(0.02 / max(_timed(lambda: binned.log_likelihood(params)), 1e-7)),
+                        1, 1000))
+    exact_t, binned_t = [], []
+    for r in range(repeats):
+        exact_t.append(_timed(lambda: exact.log_likelihood(params)) / BATCH)
+        binned_t.append(_timed(lambda: binned.log_likelihood(params), inner) / BATCH)
+        say(f"likelihood repeat {r + 1}/{repeats}: exact {exact_t[-1] * 1e3:.2f} ms, "
+            f"binned {binned_t[-1] * 1e6:.2f} us per parameter set")
+    ln_fid = exact.log_likelihood({k: np.array([v]) for k, v in fiducial.items()})[0]
+    return {
+        "case": src.name, "frequency_bins": int(data.frequencies.size), "relbin_bins": binned.bins,
+        "batch": BATCH, "repeats": repeats, "binned_calls_per_repeat": inner,
+        "exact_s_per_set": statistics.median(exact_t), "binned_s_per_set": statistics.median(binned_t),
+        "exact_s_per_set_min": min(exact_t), "binned_s_per_set_min": min(binned_t),
+        "ratio": statistics.median(exact_t) / statistics.median(binned_t),
+        "exact_setup_s": exact_setup, "binned_setup_s": binned_setup,
+        "max_abs_difference": float(np.max(np.abs(ln_exact - ln_binned))),
+        "median_drop_from_fiducial": float(np.median(ln_fid - ln_exact)),
+        "optimal_snr": drill.optimal_snr, "load_average": load(),
+    }
+
+
+def _e2e_case(drill: Drill, folder: Path, repeats: int) -> dict[str, Any]:
+    strain, psd = write_drill_files(drill, folder)
+    runs: list[dict[str, Any]] = []
+    for r in range(repeats):
+        settings = AnalysisSettings(trigger_time=drill.trigger_time, f_low=drill.source.f_low,
+                                    seed=1000 + r)
+        request = AnalysisRequest(strain_path=strain, settings=settings, psd_path=psd)
+        clock = time.perf_counter()
+        summary = analyze_files(request, folder / f"out-{r}")
+        wall = time.perf_counter() - clock
+        diag = summary["diagnostics"]
+        runs.append({"seed": 1000 + r, "wall_s": wall, "ess": diag["effective_sample_size"],
+                     "steps": diag["steps"], "converged": diag["converged"],
+                     "check_passed": diag["likelihood_check"]["passed"],
+                     "bins": diag["likelihood_check"]["bins"], "timings_s": diag["timings_s"],
+                     "load_average": load()})
+        say(f"{drill.source.name} repeat {r + 1}/{repeats}: {wall:.1f} s, "
+            f"ESS {runs[-1]['ess']:.0f}, {runs[-1]['steps']} steps")
+    stages = sorted({k for run in runs for k in run["timings_s"]})
+    return {
+        "case": drill.source.name, "duration_s": drill.source.duration,
+        "chirp_mass": drill.source.chirp_mass, "mass_ratio": drill.source.mass_ratio,
+        "optimal_snr": drill.optimal_snr, "f_low": drill.source.f_low, "repeats": repeats,
+        "wall_s": statistics.median(r["wall_s"] for r in runs),
+        "ess": statistics.median(r["ess"] for r in runs),
+        "min_ess": min(r["ess"] for r in runs),
+        "all_converged": all(r["converged"] for r in runs),
+        "all_checks_passed": all(r["check_passed"] for r in runs),
+        "stages_s": {k: statistics.median(r["timings_s"].get(k, 0.0) for r in runs) for k in stages},
+        "runs": runs,
+    }
+
+
+def _csv_read(drill: Drill, folder: Path, repeats: int) -> dict[str, Any]:
+    say("writing the two-column CSV copy of the 256 s strain")
+    csv_path = write_strain(drill.segment, folder / "strain_two_column", "csv")
+    npz_path = folder / "strain.npz"
+    csv_t = [_timed(lambda: read_strain(csv_path)) for _ in range(repeats)]
+    npz_t = [_timed(lambda: read_strain(npz_path)) for _ in range(repeats)]
+    return {"case": drill.source.name, "samples": int(drill.segment.strain.size),
+            "csv_mb": csv_path.stat().st_size / 1e6, "csv_read_s": statistics.median(csv_t),
+            "npz_read_s": statistics.median(npz_t), "repeats": repeats}
+
+
+def bench_e2e(drills: list[Drill], root: Path, repeats: int) -> dict[str, Any]:
+    """Files-to-report wall time and effective sample size per case, plus CSV reading."""
+    cases = [_e2e_case(d, root / f"case-{i}", repeats) for i, d in enumerate(drills)]
+    return {"cases": cases, "csv_read": _csv_read(drills[0], root / "case-0", repeats)}
+
+
+def bench_scaling(distance: float, durations: tuple[float, ...], repeats: int) -> dict[str, Any]:
+    """Sampling-stage time of the same source in segments of several lengths, one band."""
+    rows = []
+    for duration in durations:
+        drill = make_drill(scaling_source(duration, distance))
+        runs = []
+        for r in range(repeats):
+            settings = AnalysisSettings(trigger_time=drill.trigger_time, f_low=SCALING_F_LOW,
+                                        seed=2000 + r)
+            res = run_analysis(drill.segment, SPECTRUM, settings)
+            runs.append({"seed": 2000 + r, "sampling_s": res.timings["sampling"],
+                         "steps": res.chain.steps, "ess": res.chain.effective_sample_size,
+                         "bins": res.check.bins, "refinements": res.check.refinements,
+                         "load_average": load()})
+            say(f"{drill.source.name} repeat {r + 1}/{repeats}: sampling "
+                f"{runs[-1]['sampling_s']:.1f} s, {runs[-1]['steps']} steps")
+        per_step = [1e3 * x["sampling_s"] / x["steps"] for x in runs]
+        rows.append({"duration_s": duration, "optimal_snr": drill.optimal_snr,
+                     "frequency_bins": int(round((default_f_high(drill.segment, SPECTRUM)
+                                                  - SCALING_F_LOW) * duration)),
+                     "sampling_s": statistics.median(x["sampling_s"] for x in runs),
+                     "sampling_s_per_1000_steps": statistics.median(per_step),
+                     "steps": statistics.median(x["steps"] for x in runs),
+                     "ess": statistics.median(x["ess"] for x in runs), "runs": runs})
+    for row in rows:
+        row["ratio_to_first"] = row["sampling_s"] / rows[0]["sampling_s"]
+        row["per_step_ratio_to_first"] = (row["sampling_s_per_1000_steps"]
+                                          / rows[0]["sampling_s_per_1000_steps"])
+    return {"f_low": SCALING_F_LOW, "effective_distance": distance, "repeats": repeats,
+            "rows": rows}
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the chosen sections, print the table, write the JSON file; exit code 0."""
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--repeats", type=int, default=3, help="repeats per case (3)")
+    parser.add_argument("--quick", action="store_true", help="one repeat, skip the 512 s segment")
+    parser.add_argument("--only", choices=SECTIONS, help="run one section only")
+    parser.add_argument("--json", type=Path, default=HERE / "results.json",
+                        help="where to write the results (benchmarks/results.json)")
+    args = parser.parse_args(argv)
+    if not 1 <= args.repeats <= 50:
+        parser.error(f"--repeats {args.repeats} must be between 1 and 50")
+    repeats = 1 if args.quick else args.repeats
+    sections = (args.only,) if args.only else SECTIONS
+    results: dict[str, Any] = {"machine": machine_facts(), "quick": args.quick,
+                               "repeats": repeats, "sections": list(sections)}
+    say(f"load average {results['machine']['load_average_start']}; simulating the 256 s case")
+    bns = make_drill(BNS)
+    if "likelihood" in sections:
+        results["likelihood"] = bench_likelihood(bns, MIN_LIKELIHOOD_REPEATS if args.quick else 9)
+    if "e2e" in sections:
+        with tempfile.TemporaryDirectory(prefix="chirpcast-bench-") as tmp:
+            drills = [bns, make_drill(HEAVY_32S), make_drill(HEAVY_8S)]
+            results["e2e"] = bench_e2e(drills, Path(tmp), repeats)
+    if "scaling" in sections:
+        durations = (64.0, 128.0, 256.0) if args.quick else (64.0, 128.0, 256.0, 512.0)
+        results["scaling"] = bench_scaling(bns.injection.effective_distance, durations, repeats)
+    results["machine"]["load_average_end"] = load()
+    results["machine"]["benchmark_wall_s"] = round(time.perf_counter() - _T0, 1)
+    args.json.write_text(json.dumps(results, indent=2) + "\n", encoding="utf-8")
+    sys.stdout.write(format_table(results) + "\n")
+    say(f"wrote {args.json}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
