@@ -7,8 +7,8 @@ from typing import Any
 __all__ = ["format_table"]
 
 #: Stages of ``summary['diagnostics']['timings_s']``, in the order the analysis runs them.
-STAGES = ("reading", "conditioning", "search", "fiducial", "sampling", "likelihood_check",
-          "report")
+STAGES = {"reading": "read", "conditioning": "cond", "search": "search", "fiducial": "fiducial",
+          "sampling": "sampling", "likelihood_check": "check", "report": "report"}
 #: Aims set for the benchmark (not test thresholds).
 AIM_RATIO = 1000.0
 AIM_WALL_S = 15.0
@@ -47,12 +47,15 @@ def _likelihood(r: dict[str, Any]) -> list[str]:
         f"   (load {r['load_average']})",
         f"   on the batch: max |ln L exact - ln L binned| = {r['max_abs_difference']:.4f}; median "
         f"ln L drop from the fiducial {r['median_drop_from_fiducial']:.2f}",
+        f"   refined ({r['refined_bins']} bins, used when the analysis' check fails): "
+        f"{r['refined_s_per_set'] * 1e6:.2f} us, ratio {r['refined_ratio']:.0f}x, max |difference| "
+        f"{r['refined_max_abs_difference']:.4f}",
     ]
 
 
 def _e2e(r: dict[str, Any], cpus: int) -> list[str]:
-    head = (f"   {'case':<16}{'SNR':>5}{'wall s':>8}{'ESS':>7}{'minESS':>7}  conv check "
-            + "".join(f"{s[:8]:>9}" for s in STAGES))
+    head = (f"   {'case':<16}{'SNR':>5}{'wall s':>8}{'ESS':>7}{'minESS':>7}  conv check"
+            + "".join(f"{label:>9}" for label in STAGES.values()))
     lines = ["", f"2. Files to finished report (analyze_files: .npz strain + PSD CSV -> folder "
              f"with report), median of {r['cases'][0]['repeats']}, stage times in s", head]
     for c in r["cases"]:

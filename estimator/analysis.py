@@ -172,55 +172,86 @@ def run_analysis(
         notes.extend(spectrum.notes)
     f_high = settings.f_high if settings.f_high is not None else default_f_high(segment, spectrum)
     check_analysis_inputs(
-        segment, spectrum, trigger_time=settings.trigger_time, f_low=settings.f_low,
-        f_high=f_high, time_window=settings.time_window,
+        segment,
+        spectrum,
+        trigger_time=settings.trigger_time,
+        f_low=settings.f_low,
+        f_high=f_high,
+        time_window=settings.time_window,
     )
     mc_range = settings.chirp_mass_range
     search_range = mc_range
     if settings.chirp_mass_guess is not None:
         guess = settings.chirp_mass_guess
         if not mc_range[0] <= guess <= mc_range[1]:
-            msg = (f"chirp-mass guess {guess:g} Msun is outside the prior range "
-                   f"[{mc_range[0]:g}, {mc_range[1]:g}] Msun; widen the range or fix the guess")
+            msg = (
+                f"chirp-mass guess {guess:g} Msun is outside the prior range "
+                f"[{mc_range[0]:g}, {mc_range[1]:g}] Msun; widen the range or fix the guess"
+            )
             raise InputError(msg, field="chirp_mass_guess")
         search_range = (max(mc_range[0], guess * 0.9), min(mc_range[1], guess * 1.1))
     prior = InspiralPrior(
-        chirp_mass=mc_range, mass_ratio=settings.mass_ratio_range,
-        component_mass=settings.component_mass_range, distance_max=settings.distance_max,
+        chirp_mass=mc_range,
+        mass_ratio=settings.mass_ratio_range,
+        component_mass=settings.component_mass_range,
+        distance_max=settings.distance_max,
         time_window=settings.time_window,
     )
-    data = condition(segment, spectrum, f_low=settings.f_low, f_high=f_high,
-                     taper_duration=settings.taper_duration)
+    data = condition(
+        segment,
+        spectrum,
+        f_low=settings.f_low,
+        f_high=f_high,
+        taper_duration=settings.taper_duration,
+    )
     timings["conditioning"] = time.perf_counter() - clock
 
     clock = time.perf_counter()
     found = search_chirp_mass(
-        segment, spectrum, trigger_time=settings.trigger_time, chirp_mass_range=search_range,
-        f_low=settings.f_low, f_high=f_high, time_window=settings.time_window,
-        taper_duration=settings.taper_duration, progress=_report(progress, "search"),
-        mass_ratios=tuple(q for q in (1.0, 0.5, 0.25) if settings.mass_ratio_range[0] <= q
-                          <= settings.mass_ratio_range[1]) or (settings.mass_ratio_range[1],),
+        segment,
+        spectrum,
+        trigger_time=settings.trigger_time,
+        chirp_mass_range=search_range,
+        f_low=settings.f_low,
+        f_high=f_high,
+        time_window=settings.time_window,
+        taper_duration=settings.taper_duration,
+        progress=_report(progress, "search"),
+        mass_ratios=tuple(
+            q
+            for q in (1.0, 0.5, 0.25)
+            if settings.mass_ratio_range[0] <= q <= settings.mass_ratio_range[1]
+        )
+        or (settings.mass_ratio_range[1],),
     )
     timings["search"] = time.perf_counter() - clock
     needed = template_duration(found.chirp_mass, found.mass_ratio, settings.f_low)
     available = settings.trigger_time - segment.start_time - settings.taper_duration
     if needed > available:
         f_ok = settings.f_low * (needed / available) ** (3.0 / 8.0) * 1.05
-        msg = (f"segment too short for the band: a chirp mass of {found.chirp_mass:.4g} Msun "
-               f"stays above f_low = {settings.f_low:g} Hz for {needed:.1f} s, but only "
-               f"{available:.1f} s of data precede the trigger; raise f_low to about "
-               f"{f_ok:.0f} Hz or supply a longer segment")
+        msg = (
+            f"segment too short for the band: a chirp mass of {found.chirp_mass:.4g} Msun "
+            f"stays above f_low = {settings.f_low:g} Hz for {needed:.1f} s, but only "
+            f"{available:.1f} s of data precede the trigger; raise f_low to about "
+            f"{f_ok:.0f} Hz or supply a longer segment"
+        )
         raise InputError(msg, source=segment.source, field="f_low")
 
     clock = time.perf_counter()
     reference = settings.trigger_time
     datasets = [data]
     fiducial = find_fiducial(
-        datasets, reference,
-        {"chirp_mass": found.chirp_mass, "mass_ratio": found.mass_ratio,
-         "coalescence_time": found.coalescence_time - reference},
-        mass_ratio_range=settings.mass_ratio_range, chirp_mass_range=mc_range,
-        time_window=settings.time_window, n_bins=settings.n_bins,
+        datasets,
+        reference,
+        {
+            "chirp_mass": found.chirp_mass,
+            "mass_ratio": found.mass_ratio,
+            "coalescence_time": found.coalescence_time - reference,
+        },
+        mass_ratio_range=settings.mass_ratio_range,
+        chirp_mass_range=mc_range,
+        time_window=settings.time_window,
+        n_bins=settings.n_bins,
         progress=_report(progress, "fiducial"),
     )
     timings["fiducial"] = time.perf_counter() - clock
@@ -246,14 +277,22 @@ def run_analysis(
 
         if start is None:
             base = _scales(center["chirp_mass"], settings.f_low)
-            scales = {"chirp_mass": base[0], "mass_ratio": base[1],
-                      "effective_distance": base[2] * center["effective_distance"],
-                      "coalescence_time": base[3]}
-            start = _start_walkers(rng, prior, binned.log_likelihood, center, scales,
-                                   settings.walkers)
+            scales = {
+                "chirp_mass": base[0],
+                "mass_ratio": base[1],
+                "effective_distance": base[2] * center["effective_distance"],
+                "coalescence_time": base[3],
+            }
+            start = _start_walkers(
+                rng, prior, binned.log_likelihood, center, scales, settings.walkers
+            )
         chain = run_ensemble(
-            log_post, start, PARAMETER_NAMES, seed=seed + refinement,
-            max_steps=settings.max_steps, target_effective_samples=settings.target_effective_samples,
+            log_post,
+            start,
+            PARAMETER_NAMES,
+            seed=seed + refinement,
+            max_steps=settings.max_steps,
+            target_effective_samples=settings.target_effective_samples,
             progress=_report(progress, "sampling"),
         )
         sampling_time += time.perf_counter() - clock
@@ -266,8 +305,12 @@ def run_analysis(
         diff = np.abs(exact.log_likelihood(drawn) - binned.log_likelihood(drawn))
         worst = float(np.max(diff))
         check = LikelihoodCheck(
-            draws=n_draw, max_abs_difference=worst, tolerance=settings.likelihood_tolerance,
-            passed=worst <= settings.likelihood_tolerance, bins=binned.bins, refinements=refinement,
+            draws=n_draw,
+            max_abs_difference=worst,
+            tolerance=settings.likelihood_tolerance,
+            passed=worst <= settings.likelihood_tolerance,
+            bins=binned.bins,
+            refinements=refinement,
         )
         _report(progress, "check")(1.0)
         check_time += time.perf_counter() - clock
@@ -286,18 +329,32 @@ def run_analysis(
         msg = "sampling did not run"
         raise RuntimeError(msg)
     if not check.passed:
-        notes.append("relative-binning likelihood still differs from the exact one after "
-                     "refinement; treat the intervals with extra caution")
+        notes.append(
+            "relative-binning likelihood still differs from the exact one after "
+            "refinement; treat the intervals with extra caution"
+        )
     if not chain.converged:
-        notes.append(f"the sampler reached its step cap ({settings.max_steps}) before the "
-                     "autocorrelation-time criterion was met; the intervals may be unreliable")
+        notes.append(
+            f"the sampler reached its step cap ({settings.max_steps}) before the "
+            "autocorrelation-time criterion was met; the intervals may be unreliable"
+        )
     timings["sampling"] = sampling_time
     timings["likelihood_check"] = check_time
     samples = chain.samples()
     return AnalysisResult(
-        settings=settings, seed=seed, segment=segment, spectrum=spectrum, data=data,
-        search=found, fiducial=fiducial, chain=chain, likelihood=binned, samples=samples,
-        sample_log_likelihood=binned.log_likelihood(samples), check=check, timings=timings,
+        settings=settings,
+        seed=seed,
+        segment=segment,
+        spectrum=spectrum,
+        data=data,
+        search=found,
+        fiducial=fiducial,
+        chain=chain,
+        likelihood=binned,
+        samples=samples,
+        sample_log_likelihood=binned.log_likelihood(samples),
+        check=check,
+        timings=timings,
         notes=notes,
     )
 

@@ -88,7 +88,7 @@ class DetectorData:
     @property
     def first_index(self) -> int:
         """Index of ``frequencies[0]`` in the full rFFT grid."""
-        return int(round(self.frequencies[0] / self.df))
+        return int(np.rint(self.frequencies[0] / self.df))
 
     def inner(self, a: ComplexArray, b: ComplexArray) -> NDArray[np.complex128]:
         """Complex noise-weighted overlap ``4 df sum a b* / S`` over the last axis.
@@ -96,7 +96,7 @@ class DetectorData:
         The real part is the inner product ``<a|b>``; the modulus is the overlap
         maximised over a constant phase.
         """
-        return 4.0 * self.df * np.sum(a * np.conj(b) / self.psd, axis=-1)
+        return np.asarray(4.0 * self.df * np.sum(a * np.conj(b) / self.psd, axis=-1), dtype=complex)
 
 
 def tukey_window(n_samples: int, sample_rate: float, taper_duration: float) -> Array:
@@ -142,7 +142,7 @@ def condition(
     psd = interpolate_psd(spectrum, freqs)
     return DetectorData(
         detector=segment.detector,
-        frequencies=freqs,
+        frequencies=np.asarray(freqs, dtype=float),
         strain=np.ascontiguousarray(full[k_lo : k_hi + 1]),
         psd=np.asarray(psd, dtype=float),
         df=df,
@@ -175,8 +175,8 @@ def whiten(data: DetectorData, frequency_series: ComplexArray) -> Array:
     scale = data.psd * data.window_factor
     full = np.zeros(n // 2 + 1, dtype=complex)
     # For unit-variance white noise sampled at dt the one-sided PSD is 2 dt.
-    full[data.first_index : data.first_index + data.frequencies.size] = (
-        frequency_series / np.sqrt(scale / (2.0 * dt))
+    full[data.first_index : data.first_index + data.frequencies.size] = frequency_series / np.sqrt(
+        scale / (2.0 * dt)
     )
     series = scipy.fft.irfft(full, n) / dt
     return np.asarray(series / np.sqrt(band_fraction), dtype=float)

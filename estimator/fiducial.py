@@ -109,14 +109,26 @@ def find_fiducial(
         return f
 
     _, dist = _profile_distance(
-        RelativeBinningLikelihood(datasets, reference_time, {**start, "effective_distance": 1.0},
-                                  n_bins=n_bins), x, start)
-    steps = {"chirp_mass": scale[0], "mass_ratio": scale[1], "effective_distance": 0.1 * dist,
-             "coalescence_time": scale[2]}
+        RelativeBinningLikelihood(
+            datasets, reference_time, {**start, "effective_distance": 1.0}, n_bins=n_bins
+        ),
+        x,
+        start,
+    )
+    steps = {
+        "chirp_mass": scale[0],
+        "mass_ratio": scale[1],
+        "effective_distance": 0.1 * dist,
+        "coalescence_time": scale[2],
+    }
     for r in range(rounds + 1):
         x_anchor = x.copy()
-        fid = {"chirp_mass": x[0], "mass_ratio": x[1], "effective_distance": dist,
-               "coalescence_time": x[2]}
+        fid = {
+            "chirp_mass": x[0],
+            "mass_ratio": x[1],
+            "effective_distance": dist,
+            "coalescence_time": x[2],
+        }
         like: ExactLikelihood | RelativeBinningLikelihood
         if r < rounds:
             like = RelativeBinningLikelihood(datasets, reference_time, fid, n_bins=n_bins)
@@ -127,7 +139,7 @@ def find_fiducial(
                 steps = {k: 0.5 * float(np.sqrt(cov[i, i])) for i, k in enumerate(PARAMETER_NAMES)}
                 steps["mass_ratio"] = min(steps["mass_ratio"], 0.1)
             block = cov[np.ix_([0, 1, 3], [0, 1, 3])]
-            transform = np.linalg.cholesky(block + np.diag(np.diag(block)) * 1e-9)
+            transform = np.asarray(np.linalg.cholesky(block + np.diag(np.diag(block)) * 1e-9))
             options = {"xatol": 1e-2, "fatol": 1e-3, "maxiter": 300}
             simplex = np.eye(3) * 1.0
         else:
@@ -136,15 +148,21 @@ def find_fiducial(
             simplex = np.eye(3) * 0.3
         init = np.vstack([np.zeros(3), simplex])
         res = scipy.optimize.minimize(
-            objective(like, transform), np.zeros(3), method="Nelder-Mead",
+            objective(like, transform),
+            np.zeros(3),
+            method="Nelder-Mead",
             options={**options, "initial_simplex": init},
         )
         x = np.clip(x_anchor + transform @ res.x, lo, hi)
         _, dist = _profile_distance(like, x, start)
         if progress is not None:
             progress((r + 1) / (rounds + 1))
-    params = {"chirp_mass": float(x[0]), "mass_ratio": float(x[1]),
-              "effective_distance": float(dist), "coalescence_time": float(x[2])}
+    params = {
+        "chirp_mass": float(x[0]),
+        "mass_ratio": float(x[1]),
+        "effective_distance": float(dist),
+        "coalescence_time": float(x[2]),
+    }
     arrays = {k: np.array([v]) for k, v in params.items()}
     log_l = float(exact.log_likelihood(arrays)[0])
     snr = float(exact.matched_filter_snr(arrays)[0])

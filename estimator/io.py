@@ -1,10 +1,10 @@
 """Reading strain segments and noise spectra from files: the library's only file reader.
 
 Text tables (comma, semicolon, tab or space delimited; ``#``, ``%`` and ``//`` comment
-lines and blank lines skipped anywhere; one header line recognised), NumPy ``.npy``
-arrays and ``.npz`` archives. Every problem is raised as an
-:class:`~estimator.errors.InputError` naming the file, the line (counted in the
-original file, comments included) and what was expected.
+lines and blank lines skipped anywhere; one header line recognised; parsed by
+:func:`estimator.tables.parse_table`), NumPy ``.npy`` arrays and ``.npz`` archives.
+Every problem is raised as an :class:`~estimator.errors.InputError` naming the file,
+the line (counted in the original file, comments included) and what was expected.
 """
 
 from __future__ import annotations
@@ -20,6 +20,7 @@ from numpy.typing import NDArray
 
 from .data import NoiseSpectrum, StrainSegment
 from .errors import InputError
+from .tables import parse_table
 
 __all__ = ["MAX_CALIBRATED_STRAIN", "RATE_SNAP_TOLERANCE", "read_psd", "read_strain", "sha256_file"]
 
@@ -31,8 +32,6 @@ RATE_SNAP_TOLERANCE = 1e-6
 Array = NDArray[np.float64]
 Lines = NDArray[np.int64]
 Given = tuple[float | None, float | None]
-_SPACE, _NEWLINE = 32, 10
-_TO_SPACE = bytes.maketrans(b",;\t\x0b\x0c", b"     ")
 _STRAIN_COLUMNS = "strain, or GPS time (s) and strain"
 
 
@@ -59,83 +58,6 @@ def _read_bytes(path: Path, field: str) -> bytes:
     if not raw or raw.isspace():
         _fail("the file is empty", path.name, field)
     return raw
-
-
-def _is_number(token: bytes) -> bool:
-    try:
-        float(token)
-    except ValueError:
-        return False
-    return True
-
-
-def _parse_table(
-    raw: bytes, name: str, field: str, allowed: tuple[int, ...], expected: str
-) -> tuple[Array, Lines]:
-    """Parse a numeric text table into ``(values (n, k), line_numbers (n,))``.
-
-    Line splitting, comment detection and column counting are vectorised over the
-    file's bytes; only the number conversion runs per value, with Python's
-    correctly rounded ``float``, so values written with 17 significant digits read
-    back exactly. Runs of delimiters count as one.
-    """
-    if b"\x00" in raw:
-        _fail("the file looks binary; expected a text table, a .npy or a .npz file", name, field)
-    raw = raw.removeprefix(b"\xef\xbb\xbf")
-    if b"\r" in raw:
-        raw = raw.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
-    text = bytearray(raw.translate(_TO_SPACE))  # every delimiter becomes a space
-    buf = np.frombuffer(text, dtype=np.uint8)
-    newlines = np.flatnonzero(buf == _NEWLINE)
-    starts = np.concatenate(([0], newlines + 1))
-    ends = np.concatenate((newlines, [buf.size]))
-    solid = (buf != _SPACE) & (buf != _NEWLINE)
-    tokens = np.flatnonzero(solid[1:] > solid[:-1]) + 1  # first byte of every token
-    if solid.size and solid[0]:
-        tokens = np.concatenate(([0], tokens))
-    nodata = f"no data lines (only comments, blank lines or a header); expected {expected}"
-    if tokens.size == 0:
-        _fail(nodata, name, field)
-    line_of = np.searchsorted(newlines, tokens)
-    counts = np.bincount(line_of, minlength=starts.size)
-    first = tokens[np.minimum(np.searchsorted(line_of, np.arange(starts.size)), tokens.size - 1)]
-    c0, c1 = buf[first], buf[np.minimum(first + 1, buf.size - 1)]
-    comment = (counts > 0) & ((c0 == 35) | (c0 == 37) | ((c0 == 47) & (c1 == 47)))  # # % //
-    data, ignored = np.flatnonzero((counts > 0) & ~comment), np.flatnonzero(comment)
-
-    def line(i: np.integer | int) -> bytes:
-        return bytes(text[starts[i] : ends[i]])
-
-    if data.size and not any(_is_number(t) for t in line(data[0]).split()):
-        ignored, data = np.sort(np.append(ignored, data[0])), data[1:]  # the header line
-    if data.size == 0:
-        _fail(nodata, name, field)
-    for i in ignored:  # blank out comments and the header so that only numbers remain
-        text[starts[i] : ends[i]] = b" " * int(ends[i] - starts[i])
-    counts = counts[data]
-    ncols = int(counts[0])
-    wrong = np.flatnonzero(counts != ncols) if ncols in allowed else np.zeros(1, np.int64)
-    if wrong.size:
-        i = data[wrong[0]]
-        want = f"{ncols} like the first data line (line {data[0] + 1})"
-        if ncols not in allowed:
-            want = " or ".join(map(str, allowed))
-        hint = "; decimal commas are not supported" if b";" in raw[starts[i] : ends[i]] else ""
-        msg = f"{counts[wrong[0]]} columns found, expected {want} ({expected}){hint}"
-        _fail(msg, name, field, f"line {i + 1}")
-    try:
-        flat = np.fromiter(map(float, bytes(text).split()), np.float64, data.size * ncols)
-    except ValueError:  # find the first bad token for the message
-        i, token = next((i, t) for i in data for t in line(i).split() if not _is_number(t))
-        msg = f"'{token.decode('utf-8', 'replace')}' is not a number; expected {expected}"
-        _fail(msg, name, field, f"line {i + 1}")
-    values = flat.reshape(data.size, ncols)
-    bad = np.argwhere(~np.isfinite(values))
-    if bad.size:
-        r, c = bad[0]
-        msg = f"value {values[r, c]} in column {c + 1} is not finite; expected {expected}"
-        _fail(msg, name, field, f"line {data[r] + 1}")
-    return values, (data + 1).astype(np.int64)
 
 
 def _time_grid(times: Array, lines: Lines, name: str, tolerance: float) -> tuple[float, float]:
@@ -302,7 +224,9 @@ def read_strain(
         strain, grid = _load_numpy(raw, name)
         what = "a .npy strain array"
     else:
-        values, lines = _parse_table(raw, name, "strain", (1, 2), _STRAIN_COLUMNS)
+        values, lines = parse_table(
+            raw, source=name, field="strain", allowed=(1, 2), expected=_STRAIN_COLUMNS
+        )
         strain, grid, what = values[:, -1], None, "one-column strain"
         if values.shape[1] == 2:
             _check_strain(strain[:2], name, lines)  # at least two samples to make a grid of
@@ -339,7 +263,9 @@ def read_psd(path: str | Path, *, asd: bool = False) -> NoiseSpectrum:
     name = p.name
     unit = "ASD (1/sqrt(Hz))" if asd else "PSD (1/Hz)"
     raw = _read_bytes(p, "psd")
-    values, lines = _parse_table(raw, name, "psd", (2,), f"frequency (Hz) and {unit}")
+    values, lines = parse_table(
+        raw, source=name, field="psd", allowed=(2,), expected=f"frequency (Hz) and {unit}"
+    )
     freq, density = values[:, 0], values[:, 1]
     if freq.size < 2:
         _fail("only 1 frequency found, expected at least 2", name, "psd")

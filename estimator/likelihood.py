@@ -16,6 +16,7 @@ coherent several-detector model can slot in with the same interface.
 
 from __future__ import annotations
 
+import itertools
 import os
 from collections.abc import Mapping, Sequence
 from concurrent.futures import ThreadPoolExecutor
@@ -72,7 +73,8 @@ def newtonian_amplitude(chirp_mass: Array, effective_distance: Array) -> Array:
     optimally oriented source at distance ``D_eff``).
     """
     return np.asarray(
-        np.sqrt(5.0 / 24.0) * np.pi ** (-2.0 / 3.0)
+        np.sqrt(5.0 / 24.0)
+        * np.pi ** (-2.0 / 3.0)
         * (np.asarray(chirp_mass) * MSUN_SECONDS) ** (5.0 / 6.0)
         / (np.asarray(effective_distance) * MPC_SECONDS),
         dtype=float,
@@ -164,7 +166,7 @@ class ExactLikelihood:
         # d h* with h ~ exp(-i psi): the conjugate carries exp(+i psi).
         c_w = (cos @ prep.weights32[lo:hi]).astype(float)
         s_w = (sin @ prep.weights32[lo:hi]).astype(float)
-        return (c_w[:, 0] - s_w[:, 1]) + 1j * (c_w[:, 1] + s_w[:, 0])
+        return np.asarray((c_w[:, 0] - s_w[:, 1]) + 1j * (c_w[:, 1] + s_w[:, 0]), dtype=complex)
 
     def overlaps(self, params: Params) -> tuple[NDArray[np.complex128], Array]:
         """Complex overlap ``z = <d|h>`` (phase 0) and ``<h|h>``, each ``(n_det, n)``.
@@ -184,7 +186,9 @@ class ExactLikelihood:
         for i, prep in enumerate(self._prepared):
             f = prep.data.frequencies
             n_keep = np.searchsorted(f, f_isco, side="right")
-            hh[i] = amp**2 * np.where(n_keep > 0, prep.cumulative_norm[np.maximum(n_keep - 1, 0)], 0.0)
+            hh[i] = amp**2 * np.where(
+                n_keep > 0, prep.cumulative_norm[np.maximum(n_keep - 1, 0)], 0.0
+            )
             coeffs = np.column_stack(
                 [prep.basis.coefficients(mc, q), 2.0 * np.pi * tc, np.full(n, -np.pi / 4.0)]
             )
@@ -195,8 +199,11 @@ class ExactLikelihood:
                 if top == 0:
                     continue
                 edges = np.linspace(0, top, self.workers + 1).astype(int)
-                jobs = [(prep, coeffs[sl], n_keep[sl], int(lo), int(hi))
-                        for lo, hi in zip(edges[:-1], edges[1:], strict=True) if hi > lo]
+                jobs = [
+                    (prep, coeffs[sl], n_keep[sl], int(lo), int(hi))
+                    for lo, hi in itertools.pairwise(edges)
+                    if hi > lo
+                ]
                 if len(jobs) == 1 or top < 20_000 or sl.stop - sl.start < 4:
                     parts = [self._block(prep, coeffs[sl], n_keep[sl], 0, top)]
                 else:

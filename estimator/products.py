@@ -1,4 +1,4 @@
-"""Arrays the report's pictures are drawn from (the plotting itself is in :mod:`estimator.plots`)."""
+"""Arrays the report's pictures are drawn from (the figures themselves: :mod:`estimator.plots`)."""
 
 from __future__ import annotations
 
@@ -51,20 +51,25 @@ def plot_data(result: AnalysisResult, *, span: tuple[float, float] | None = None
     arrays = {k: np.array([v]) for k, v in p.items()}
     z, _ = result.likelihood.overlaps(arrays)
     phase = float(np.angle(z[0, 0]))
-    model = taylorf2(data.frequencies, p["chirp_mass"], p["mass_ratio"], p["effective_distance"],
-                     tc_rel, phase)
+    model = taylorf2(
+        data.frequencies, p["chirp_mass"], p["mass_ratio"], p["effective_distance"], tc_rel, phase
+    )
     times = np.arange(data.n_samples) / data.sample_rate - tc_rel
     white_data = whiten(data, data.strain)
     white_model = whiten(data, model)
-    f_end = min(float(isco_frequency(p["chirp_mass"] * symmetric_mass_ratio(p["mass_ratio"]) ** -0.6)),
-                data.f_high)
+    f_end = min(
+        float(isco_frequency(p["chirp_mass"] * symmetric_mass_ratio(p["mass_ratio"]) ** -0.6)),
+        data.f_high,
+    )
     track_f = np.geomspace(data.f_low, f_end, 200)
     track_t = -time_to_coalescence(track_f, p["chirp_mass"], p["mass_ratio"])
     if span is None:
         span = (max(-8.0, float(track_t[0]) - 0.5, float(times[0])), 0.25)
     keep = (times >= span[0]) & (times <= span[1])
     welch = welch_psd(result.segment)
-    band = (result.spectrum.frequencies >= data.f_low / 2) & (result.spectrum.frequencies <= data.f_high * 1.2)
+    band = (result.spectrum.frequencies >= data.f_low / 2) & (
+        result.spectrum.frequencies <= data.f_high * 1.2
+    )
     return PlotData(
         times=times[keep],
         whitened_data=white_data[keep],

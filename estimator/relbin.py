@@ -47,7 +47,10 @@ def bin_edges(frequencies: Array, n_bins: int) -> Array:
     f_lo, f_hi = f[0], f[-1]
     star = np.where(_EXPONENTS > 0, f_hi, f_lo)
     bound = np.sum(
-        2.0 * np.pi * np.sign(_EXPONENTS)[:, None] * (f[None, :] / star[:, None]) ** _EXPONENTS[:, None],
+        2.0
+        * np.pi
+        * np.sign(_EXPONENTS)[:, None]
+        * (f[None, :] / star[:, None]) ** _EXPONENTS[:, None],
         axis=0,
     )
     targets = np.linspace(bound[0], bound[-1], n_bins + 1)
@@ -130,9 +133,9 @@ class RelativeBinningLikelihood:
                 which, weights=integrand.imag, minlength=nb
             )
             dfb = f - centers[which]
-            a1 = np.bincount(which, weights=(integrand * dfb).real, minlength=nb) + 1j * np.bincount(
-                which, weights=(integrand * dfb).imag, minlength=nb
-            )
+            a1 = np.bincount(
+                which, weights=(integrand * dfb).real, minlength=nb
+            ) + 1j * np.bincount(which, weights=(integrand * dfb).imag, minlength=nb)
             self._bins.append(
                 _Binned(
                     data=data,
@@ -140,7 +143,7 @@ class RelativeBinningLikelihood:
                     centers=centers,
                     widths=np.diff(edges),
                     inverse_widths=1.0 / np.diff(edges),
-                    first=idx[:-1],
+                    first=np.asarray(idx[:-1], dtype=np.intp),
                     a0=a0,
                     a1=a1,
                     phase0_edges=taylorf2_phase(edges, mc0, q0) + 2.0 * np.pi * shift * edges,

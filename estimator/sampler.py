@@ -125,7 +125,7 @@ def run_ensemble(
     moves = [(emcee.moves.DEMove(), 1.0)]
     sampler = emcee.EnsembleSampler(walkers, ndim, vector_log_prob, vectorize=True, moves=moves)
     # emcee draws from a legacy RandomState; seeding it makes the chain reproducible.
-    sampler.random_state = np.random.RandomState(seed).get_state()  # noqa: NPY002
+    sampler.random_state = np.random.RandomState(seed).get_state()
     state = emcee.State(start)
     old_tau = np.full(ndim, np.inf)
     converged = False
@@ -144,7 +144,10 @@ def run_ensemble(
                 converged = True
             if progress is not None:
                 # The larger of the two shortfalls decides how much is left.
-                need = max(tau_factor * np.max(tau), target_effective_samples * np.max(tau) / walkers + burn)
+                need = max(
+                    tau_factor * np.max(tau),
+                    target_effective_samples * np.max(tau) / walkers + burn,
+                )
                 progress(min(1.0, steps / max(need, 1.0)))
         old_tau = tau
         if converged:

@@ -20,6 +20,7 @@ the template-placement metric).
 
 from __future__ import annotations
 
+import itertools
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -155,7 +156,9 @@ def _stage_data(
     start = max(segment.start_time, trigger_time - longest - time_window - 1.0 - taper)
     stop = min(segment.end_time, trigger_time + time_window + 1.0 + taper)
     i0 = int(np.floor((start - segment.start_time) * segment.sample_rate))
-    n = scipy.fft.next_fast_len(int(np.ceil((stop - segment.start_time) * segment.sample_rate)) - i0)
+    n = scipy.fft.next_fast_len(
+        int(np.ceil((stop - segment.start_time) * segment.sample_rate)) - i0
+    )
     n = min(n, segment.strain.size - i0)
     sub = StrainSegment(
         strain=segment.strain[i0 : i0 + n],
@@ -175,7 +178,7 @@ def _first_stage_frequency(mc_lo: float, mc_hi: float, f_low: float, q: float) -
         count = (chirp_time(mc_lo, f) - chirp_time(mc_hi, f)) * f / SPACING
         if count <= MAX_FIRST_STAGE:
             break
-        f *= 2.0 ** 0.5
+        f *= 2.0**0.5
     return min(f, max(f_low, f_top))
 
 
@@ -222,13 +225,19 @@ def search_chirp_mass(
         key = (round(f_s, 6), round(longest, 1))
         if key not in cache:
             stage = _stage_data(
-                segment, spectrum, f_start=f_s, f_max=f_max, longest=longest,
-                trigger_time=trigger_time, time_window=time_window, taper=taper_duration,
+                segment,
+                spectrum,
+                f_start=f_s,
+                f_max=f_max,
+                longest=longest,
+                trigger_time=trigger_time,
+                time_window=time_window,
+                taper=taper_duration,
             )
             cache[key] = (stage, PhaseBasis(stage.frequencies[stage.frequencies <= f_max]))
         data, basis = cache[key]
         step = SPACING / f_s
-        taus = np.arange(chirp_time(mc_hi, f_s), chirp_time(mc_lo, f_s) + step, step)
+        taus = np.arange(float(chirp_time(mc_hi, f_s)), float(chirp_time(mc_lo, f_s)) + step, step)
         trial = _chirp_mass_from_tau(taus, f_s)
         trial = np.clip(trial, lo, hi)
         scores = np.empty(trial.size)
@@ -248,7 +257,7 @@ def search_chirp_mass(
     # are followed down to f_low, where every mass ratio is tried.
     first = []
     q_first = mass_ratios[0]
-    for a, b in zip(pieces[:-1], pieces[1:], strict=True):
+    for a, b in itertools.pairwise(pieces):
         f_s = _first_stage_frequency(a, b, f_low, q_first)
         mc, snr, peak = run_stage(f_s, a, b, q_first)
         first.append((snr, f_s, mc, peak))
@@ -263,8 +272,10 @@ def search_chirp_mass(
             carry = CARRY * (3.0 if final else 1.0)
             tau_best = float(chirp_time(mc, f_s))
             mc_lo = max(lo, float(_chirp_mass_from_tau(tau_best + carry * step, f_s)))
-            mc_hi = hi if tau_best <= carry * step else min(
-                hi, float(_chirp_mass_from_tau(tau_best - carry * step, f_s))
+            mc_hi = (
+                hi
+                if tau_best <= carry * step
+                else min(hi, float(_chirp_mass_from_tau(tau_best - carry * step, f_s)))
             )
             if final:
                 trials = [(*run_stage(f_s, mc_lo, mc_hi, q), q) for q in mass_ratios]

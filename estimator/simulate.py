@@ -85,7 +85,10 @@ def injection_strain(
     df = sample_rate / n_samples
     f = np.arange(n_samples // 2 + 1) * df
     available = injection.coalescence_time - start_time - 1.0
-    while float(time_to_coalescence(f_start, injection.chirp_mass, injection.mass_ratio)[0]) > available:
+    while (
+        float(time_to_coalescence(f_start, injection.chirp_mass, injection.mass_ratio)[0])
+        > available
+    ):
         f_start *= 1.05
     h = np.zeros(f.size, dtype=complex)
     on = f >= f_start
@@ -98,7 +101,7 @@ def injection_strain(
         injection.phase,
     )
     ramp = np.clip((f - f_start) / (0.1 * f_start), 0.0, 1.0)
-    return h * 0.5 * (1.0 - np.cos(np.pi * ramp))
+    return np.asarray(h * 0.5 * (1.0 - np.cos(np.pi * ramp)), dtype=complex)
 
 
 def simulate_segment(
@@ -116,7 +119,7 @@ def simulate_segment(
 
     Frequencies outside the spectrum's range get no noise.
     """
-    n = int(round(duration * sample_rate))
+    n = round(duration * sample_rate)
     dt = 1.0 / sample_rate
     f = np.arange(n // 2 + 1) * (sample_rate / n)
     psd = np.zeros_like(f)

@@ -128,7 +128,9 @@ def build_summary(
     if fid.log_likelihood >= float(derived["log_likelihood"][best]):
         ml = {**fid.params, "snr": fid.snr, "log_likelihood": fid.log_likelihood}
     else:
-        ml = {k: float(derived[k][best]) for k in ("chirp_mass", "mass_ratio", "effective_distance")}
+        ml = {
+            k: float(derived[k][best]) for k in ("chirp_mass", "mass_ratio", "effective_distance")
+        }
         ml["coalescence_time"] = float(derived["coalescence_offset"][best])
         ml["snr"] = float(derived["snr"][best])
         ml["log_likelihood"] = float(derived["log_likelihood"][best])
@@ -137,12 +139,16 @@ def build_summary(
         "schema_version": 1,
         "label": label,
         "credible_level": CREDIBLE_LEVEL,
-        "parameters": {name: _interval(derived[name], unit) for name, unit in PARAMETER_UNITS.items()},
+        "parameters": {
+            name: _interval(derived[name], unit) for name, unit in PARAMETER_UNITS.items()
+        },
         "probabilities": {
-            "secondary_below_3_msun": probability_below(derived["source_secondary_mass"],
-                                                        NEUTRON_STAR_LIMIT),
-            "primary_below_3_msun": probability_below(derived["source_primary_mass"],
-                                                      NEUTRON_STAR_LIMIT),
+            "secondary_below_3_msun": probability_below(
+                derived["source_secondary_mass"], NEUTRON_STAR_LIMIT
+            ),
+            "primary_below_3_msun": probability_below(
+                derived["source_primary_mass"], NEUTRON_STAR_LIMIT
+            ),
         },
         "maximum_likelihood": {k: float(v) for k, v in ml.items()},
         "search": {
@@ -153,7 +159,9 @@ def build_summary(
             "templates": result.search.templates,
         },
         "diagnostics": {
-            "autocorrelation_time": {n: float(t) for n, t in zip(chain.names, chain.tau, strict=True)},
+            "autocorrelation_time": {
+                n: float(t) for n, t in zip(chain.names, chain.tau, strict=True)
+            },
             "effective_sample_size": chain.effective_sample_size,
             "samples": int(derived["chirp_mass"].size),
             "acceptance_fraction": chain.acceptance_fraction,
@@ -172,12 +180,16 @@ def build_summary(
             },
             "timings_s": {k: round(float(v), 3) for k, v in result.timings.items()},
         },
-        "settings": {**settings_dict(result.settings), "seed": result.seed, "f_high": result.f_high},
+        "settings": {
+            **settings_dict(result.settings),
+            "seed": result.seed,
+            "f_high": result.f_high,
+        },
         "inputs": dict(inputs),
         "model": {
             "waveform": "TaylorF2: 3.5PN point-particle phase, restricted Newtonian amplitude, "
-                        "ending at the Schwarzschild ISCO of the total mass; no spins, tides, "
-                        "merger or ringdown",
+            "ending at the Schwarzschild ISCO of the total mass; no spins, tides, "
+            "merger or ringdown",
             "noise": "stationary Gaussian noise described by the given one-sided PSD",
             "cosmology": "flat Lambda-CDM, H0 = 67.66 km/s/Mpc, Omega_m = 0.30966 (Planck 2018)",
             "detectors": [result.data.detector],

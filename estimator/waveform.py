@@ -77,7 +77,7 @@ def isco_frequency(total_mass: ArrayLike) -> Array:
     ``f = 1 / (6^{3/2} pi M)``, i.e. about 4400 Hz x (M_sun / M) (common practice).
     """
     m = np.asarray(total_mass, dtype=float) * MSUN_SECONDS
-    return 1.0 / (6.0**1.5 * np.pi * m)
+    return np.asarray(1.0 / (6.0**1.5 * np.pi * m), dtype=float)
 
 
 def chirp_time(chirp_mass: ArrayLike, f_low: float) -> Array:
@@ -119,8 +119,10 @@ def phase_coefficients(eta: ArrayLike) -> dict[int, tuple[Array, Array]]:
         4: (15293365.0 / 508032.0 + 27145.0 / 504.0 * eta + 3085.0 / 72.0 * eta**2, zero),
         5: (a5, 3.0 * a5),
         6: (a6, -6848.0 / 21.0 + zero),
-        7: (pi * (77096675.0 / 254016.0 + 378515.0 / 1512.0 * eta - 74045.0 / 756.0 * eta**2),
-            zero),
+        7: (
+            pi * (77096675.0 / 254016.0 + 378515.0 / 1512.0 * eta - 74045.0 / 756.0 * eta**2),
+            zero,
+        ),
     }
 
 
@@ -194,7 +196,11 @@ def _coefficient_tables(layout: list[tuple[int, bool]]) -> tuple[Array, Array, A
                 with_log[:, j] = b_k
         vander = np.vander(nodes, 4, increasing=True)
         powers = np.array([k - 5.0 for k, _ in layout])
-        _TABLES[key] = (np.linalg.solve(vander, plain), np.linalg.solve(vander, with_log), powers)
+        _TABLES[key] = (
+            np.asarray(np.linalg.solve(vander, plain), dtype=float),
+            np.asarray(np.linalg.solve(vander, with_log), dtype=float),
+            powers,
+        )
     return _TABLES[key]
 
 
@@ -266,19 +272,19 @@ def taylorf2(
     psi = taylorf2_phase(f, mc, q)
     psi += 2.0 * np.pi * tc[:, None] * f[None, :] - phi[:, None] - np.pi / 4.0
     amp0 = (
-        np.sqrt(5.0 / 24.0) * np.pi ** (-2.0 / 3.0)
-        * (mc * MSUN_SECONDS) ** (5.0 / 6.0) / (dist * MPC_SECONDS)
+        np.sqrt(5.0 / 24.0)
+        * np.pi ** (-2.0 / 3.0)
+        * (mc * MSUN_SECONDS) ** (5.0 / 6.0)
+        / (dist * MPC_SECONDS)
     )
     eta = symmetric_mass_ratio(q)
     f_isco = isco_frequency(mc * eta ** (-0.6))
     amp = amp0[:, None] * f[None, :] ** (-7.0 / 6.0) * (f[None, :] <= f_isco[:, None])
-    h = amp * np.exp(-1j * psi)
+    h = np.asarray(amp * np.exp(-1j * psi), dtype=complex)
     return h[0] if scalar else h
 
 
-def time_to_coalescence(
-    frequencies: ArrayLike, chirp_mass: float, mass_ratio: float
-) -> Array:
+def time_to_coalescence(frequencies: ArrayLike, chirp_mass: float, mass_ratio: float) -> Array:
     """Time before coalescence at which the signal sweeps through ``f``, in s.
 
     The stationary-phase time ``t(f) = t_c + (1/2 pi) dPsi/df``
@@ -297,4 +303,4 @@ def time_to_coalescence(
         dpsi_dv += ((k - 5) * (a + b * np.log(v)) + b) * v ** (k - 6)
     dpsi_dv *= 3.0 / (128.0 * eta)
     dpsi_df = dpsi_dv * v / (3.0 * f)
-    return -dpsi_df / (2.0 * np.pi)
+    return np.asarray(-dpsi_df / (2.0 * np.pi), dtype=float)

@@ -32,7 +32,7 @@ EXIT_OK, EXIT_INTERNAL, EXIT_INPUT = 0, 1, 2
 class _Parser(argparse.ArgumentParser):
     """argparse that reports usage errors as one line and exit code 2."""
 
-    def error(self, message: str) -> Any:  # type: ignore[override]
+    def error(self, message: str) -> Any:
         self.exit(EXIT_INPUT, f"chirpcast: error: {message} (see '{self.prog} --help')\n")
 
 
@@ -44,14 +44,19 @@ class _ProgressBar:
         if enabled:
             from tqdm import tqdm
 
-            self._bar = tqdm(total=100, file=sys.stderr, unit="%", leave=True,
-                             bar_format="{desc:<22} {percentage:3.0f}%|{bar}| {elapsed}")
+            self._bar = tqdm(
+                total=100,
+                file=sys.stderr,
+                unit="%",
+                leave=True,
+                bar_format="{desc:<22} {percentage:3.0f}%|{bar}| {elapsed}",
+            )
 
     def __call__(self, stage: str, fraction: float, total: float) -> None:
         if self._bar is None:
             return
         self._bar.set_description_str(stage, refresh=False)
-        target = int(round(100 * min(max(total, 0.0), 1.0)))
+        target = round(100 * min(max(total, 0.0), 1.0))
         if target > self._bar.n:
             self._bar.update(target - self._bar.n)
         else:
@@ -63,39 +68,86 @@ class _ProgressBar:
 
 
 def _add_analysis_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("strain", type=Path, help="strain file: text/CSV (time, strain or strain), "
-                   ".npy or .npz (strain, sample_rate, start_time)")
-    p.add_argument("--psd", type=Path, help="noise spectrum: text/CSV (frequency Hz, one-sided "
-                   "PSD 1/Hz); estimated from the segment with Welch's method when absent")
-    p.add_argument("--asd", action="store_true",
-                   help="the spectrum's second column is an amplitude spectral density")
+    p.add_argument(
+        "strain",
+        type=Path,
+        help="strain file: text/CSV (time, strain or strain), "
+        ".npy or .npz (strain, sample_rate, start_time)",
+    )
+    p.add_argument(
+        "--psd",
+        type=Path,
+        help="noise spectrum: text/CSV (frequency Hz, one-sided "
+        "PSD 1/Hz); estimated from the segment with Welch's method when absent",
+    )
+    p.add_argument(
+        "--asd",
+        action="store_true",
+        help="the spectrum's second column is an amplitude spectral density",
+    )
     p.add_argument("--trigger-time", type=float, required=True, help="GPS time of the candidate")
     p.add_argument("--sample-rate", type=float, help="Hz, for one-column text and .npy strain")
-    p.add_argument("--start-time", type=float, help="GPS s of the first sample, for one-column "
-                   "text and .npy strain")
-    p.add_argument("--chirp-mass-guess", type=float,
-                   help="detector-frame chirp mass (Msun) to search around (±10%%)")
+    p.add_argument(
+        "--start-time",
+        type=float,
+        help="GPS s of the first sample, for one-column text and .npy strain",
+    )
+    p.add_argument(
+        "--chirp-mass-guess",
+        type=float,
+        help="detector-frame chirp mass (Msun) to search around (±10%%)",
+    )
     p.add_argument("--f-low", type=float, default=20.0, help="low end of the band, Hz (20)")
-    p.add_argument("--f-high", type=float, help="high end of the band, Hz (default: 90%% of "
-                   "Nyquist or the spectrum's top, whichever is lower)")
-    p.add_argument("--chirp-mass-range", type=float, nargs=2, metavar=("LOW", "HIGH"),
-                   default=(0.4, 80.0), help="prior on detector-frame chirp mass, Msun")
-    p.add_argument("--mass-ratio-min", type=float, default=0.1,
-                   help="smallest mass ratio m2/m1 in the prior (0.1)")
-    p.add_argument("--component-mass-range", type=float, nargs=2, metavar=("LOW", "HIGH"),
-                   default=(0.5, 150.0), help="prior on each detector-frame mass, Msun")
-    p.add_argument("--distance-max", type=float, default=10_000.0,
-                   help="largest luminosity distance in the prior, Mpc (10000)")
-    p.add_argument("--time-window", type=float, default=0.1,
-                   help="half-width of the coalescence-time prior around the trigger, s (0.1)")
+    p.add_argument(
+        "--f-high",
+        type=float,
+        help="high end of the band, Hz (default: 90%% of "
+        "Nyquist or the spectrum's top, whichever is lower)",
+    )
+    p.add_argument(
+        "--chirp-mass-range",
+        type=float,
+        nargs=2,
+        metavar=("LOW", "HIGH"),
+        default=(0.4, 80.0),
+        help="prior on detector-frame chirp mass, Msun",
+    )
+    p.add_argument(
+        "--mass-ratio-min",
+        type=float,
+        default=0.1,
+        help="smallest mass ratio m2/m1 in the prior (0.1)",
+    )
+    p.add_argument(
+        "--component-mass-range",
+        type=float,
+        nargs=2,
+        metavar=("LOW", "HIGH"),
+        default=(0.5, 150.0),
+        help="prior on each detector-frame mass, Msun",
+    )
+    p.add_argument(
+        "--distance-max",
+        type=float,
+        default=10_000.0,
+        help="largest luminosity distance in the prior, Mpc (10000)",
+    )
+    p.add_argument(
+        "--time-window",
+        type=float,
+        default=0.1,
+        help="half-width of the coalescence-time prior around the trigger, s (0.1)",
+    )
     p.add_argument("--seed", type=int, help="random seed (drawn and recorded when absent)")
     p.add_argument("--label", default="", help="a name for the report")
     p.add_argument("--out", type=Path, required=True, help="output folder")
 
 
 def _parser() -> argparse.ArgumentParser:
-    parser = _Parser(prog="chirpcast", description="Rapid Bayesian parameter estimation of a "
-                     "detected compact-binary inspiral.")
+    parser = _Parser(
+        prog="chirpcast",
+        description="Rapid Bayesian parameter estimation of a detected compact-binary inspiral.",
+    )
     parser.add_argument("--version", action="version", version=f"chirpcast {__version__}")
     parser.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -105,31 +157,46 @@ def _parser() -> argparse.ArgumentParser:
     _add_analysis_options(analyze)
 
     demo = sub.add_parser("demo", help="analyse the shipped demo event")
-    demo.add_argument("--out", type=Path, default=Path("chirpcast-demo"),
-                      help="output folder (./chirpcast-demo)")
+    demo.add_argument(
+        "--out", type=Path, default=Path("chirpcast-demo"), help="output folder (./chirpcast-demo)"
+    )
     demo.add_argument("--seed", type=int, default=None, help="random seed (the demo's own)")
 
-    sim = sub.add_parser("simulate", help="make a drill data set: coloured Gaussian noise "
-                         "plus an injected inspiral")
+    sim = sub.add_parser(
+        "simulate", help="make a drill data set: coloured Gaussian noise plus an injected inspiral"
+    )
     sim.add_argument("--out", type=Path, required=True, help="output folder")
-    sim.add_argument("--psd", type=Path, help="noise spectrum to colour the noise with "
-                     "(default: an analytic design-sensitivity fit)")
+    sim.add_argument(
+        "--psd",
+        type=Path,
+        help="noise spectrum to colour the noise with "
+        "(default: an analytic design-sensitivity fit)",
+    )
     sim.add_argument("--asd", action="store_true", help="--psd holds an amplitude spectrum")
     sim.add_argument("--duration", type=float, default=16.0, help="segment length, s (16)")
     sim.add_argument("--sample-rate", type=float, default=4096.0, help="Hz (4096)")
     sim.add_argument("--start-time", type=float, default=1_000_000_000.0, help="GPS s")
-    sim.add_argument("--coalescence-time", type=float,
-                     help="GPS s (default: 2 s before the segment ends)")
+    sim.add_argument(
+        "--coalescence-time", type=float, help="GPS s (default: 2 s before the segment ends)"
+    )
     sim.add_argument("--chirp-mass", type=float, default=20.0, help="detector frame, Msun")
     sim.add_argument("--mass-ratio", type=float, default=0.7, help="m2/m1 <= 1")
     sim.add_argument("--distance", type=float, default=500.0, help="luminosity distance, Mpc")
-    sim.add_argument("--orientation-factor", type=float, default=0.7,
-                     help="w in (0, 1]: effective distance = distance / w")
+    sim.add_argument(
+        "--orientation-factor",
+        type=float,
+        default=0.7,
+        help="w in (0, 1]: effective distance = distance / w",
+    )
     sim.add_argument("--snr", type=float, help="rescale the distance to this optimal SNR")
     sim.add_argument("--phase", type=float, default=1.0, help="coalescence phase, rad")
     sim.add_argument("--f-low", type=float, default=20.0, help="band for --snr, Hz (20)")
-    sim.add_argument("--format", choices=("csv", "npz", "npy"), default="csv",
-                     help="strain file format (csv: two columns, GPS time and strain)")
+    sim.add_argument(
+        "--format",
+        choices=("csv", "npz", "npy"),
+        default="csv",
+        help="strain file format (csv: two columns, GPS time and strain)",
+    )
     sim.add_argument("--seed", type=int, default=1, help="noise seed (1)")
     return parser
 
@@ -151,19 +218,26 @@ def _settings(args: argparse.Namespace) -> AnalysisSettings:
 
 def _print_result(summary: dict[str, Any], out: Path) -> None:
     p = summary["parameters"]
+    p_ns = summary["probabilities"]["secondary_below_3_msun"]
 
     def row(name: str, digits: int) -> str:
         e = p[name]
-        return (f"  {name:<22} {e['median']:.{digits}f}  "
-                f"[{e['lower']:.{digits}f}, {e['upper']:.{digits}f}] {e['unit']}")
+        return (
+            f"  {name:<22} {e['median']:.{digits}f}  "
+            f"[{e['lower']:.{digits}f}, {e['upper']:.{digits}f}] {e['unit']}"
+        )
 
     lines = [
         f"chirpcast: {summary['label']}: 90% credible intervals "
         "(automated preliminary estimate; not a vetted result)",
-        row("chirp_mass", 4), row("mass_ratio", 3), row("source_primary_mass", 2),
-        row("source_secondary_mass", 2), row("luminosity_distance", 0),
-        row("coalescence_time", 4), row("snr", 1),
-        f"  P(lighter component < 3 Msun) = {summary['probabilities']['secondary_below_3_msun']:.2f}",
+        row("chirp_mass", 4),
+        row("mass_ratio", 3),
+        row("source_primary_mass", 2),
+        row("source_secondary_mass", 2),
+        row("luminosity_distance", 0),
+        row("coalescence_time", 4),
+        row("snr", 1),
+        f"  P(lighter component < 3 Msun) = {p_ns:.2f}",
         f"report: {out / 'report.html'}",
     ]
     sys.stdout.write("\n".join(lines) + "\n")
@@ -173,8 +247,13 @@ def _run_analyze(args: argparse.Namespace) -> int:
     from .pipeline import AnalysisRequest, analyze_files
 
     request = AnalysisRequest(
-        strain_path=args.strain, psd_path=args.psd, asd=args.asd, settings=_settings(args),
-        sample_rate=args.sample_rate, start_time=args.start_time, label=args.label,
+        strain_path=args.strain,
+        psd_path=args.psd,
+        asd=args.asd,
+        settings=_settings(args),
+        sample_rate=args.sample_rate,
+        start_time=args.start_time,
+        label=args.label,
     )
     bar = _ProgressBar(not args.quiet)
     try:
@@ -187,9 +266,19 @@ def _run_analyze(args: argparse.Namespace) -> int:
 
 def _run_demo(args: argparse.Namespace) -> int:
     spec = json.loads((DEMO_DIR / "event.json").read_text(encoding="utf-8"))
-    argv = [str(DEMO_DIR / spec["strain"]), "--psd", str(DEMO_DIR / spec["psd"]),
-            "--trigger-time", repr(spec["trigger_time"]), "--label", spec["label"],
-            "--out", str(args.out), "--seed", str(args.seed if args.seed is not None else spec["seed"])]
+    argv = [
+        str(DEMO_DIR / spec["strain"]),
+        "--psd",
+        str(DEMO_DIR / spec["psd"]),
+        "--trigger-time",
+        repr(spec["trigger_time"]),
+        "--label",
+        spec["label"],
+        "--out",
+        str(args.out),
+        "--seed",
+        str(args.seed if args.seed is not None else spec["seed"]),
+    ]
     ns = _parser().parse_args(["analyze", *argv])
     ns.quiet, ns.debug = args.quiet, args.debug
     return _run_analyze(ns)
@@ -207,8 +296,10 @@ def _run_simulate(args: argparse.Namespace) -> int:
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``chirpcast`` command; returns the exit code."""
     args = _parser().parse_args(argv)
-    logging.basicConfig(level=logging.DEBUG if args.debug else logging.WARNING,
-                        format="chirpcast: %(levelname)s: %(message)s")
+    logging.basicConfig(
+        level=logging.DEBUG if args.debug else logging.WARNING,
+        format="chirpcast: %(levelname)s: %(message)s",
+    )
     commands = {"analyze": _run_analyze, "demo": _run_demo, "simulate": _run_simulate}
     try:
         return commands[args.command](args)
@@ -221,8 +312,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except Exception as err:
         if args.debug:
             log.exception("internal error")
-        sys.stderr.write(f"chirpcast: internal error: {type(err).__name__}: {err} "
-                         "(run with --debug for the traceback)\n")
+        sys.stderr.write(
+            f"chirpcast: internal error: {type(err).__name__}: {err} "
+            "(run with --debug for the traceback)\n"
+        )
         return EXIT_INTERNAL
 
 

@@ -55,10 +55,22 @@ PLOT_FILES = {
 OUTPUT_FILES = {"summary.json", "samples.csv", "report.html", *PLOT_FILES.values()}
 #: Columns of samples.csv, in order.
 SAMPLE_COLUMNS = (
-    "chirp_mass", "mass_ratio", "primary_mass", "secondary_mass", "total_mass",
-    "luminosity_distance", "effective_distance", "orientation_factor", "coalescence_time",
-    "redshift", "source_chirp_mass", "source_primary_mass", "source_secondary_mass",
-    "source_total_mass", "snr", "log_likelihood",
+    "chirp_mass",
+    "mass_ratio",
+    "primary_mass",
+    "secondary_mass",
+    "total_mass",
+    "luminosity_distance",
+    "effective_distance",
+    "orientation_factor",
+    "coalescence_time",
+    "redshift",
+    "source_chirp_mass",
+    "source_primary_mass",
+    "source_secondary_mass",
+    "source_total_mass",
+    "snr",
+    "log_likelihood",
 )
 
 Progress = Callable[[str, float, float], None]
@@ -77,8 +89,9 @@ class AnalysisRequest:
     label: str = ""
 
 
-def _inputs(request: AnalysisRequest, segment: StrainSegment, spectrum: NoiseSpectrum | None
-            ) -> dict[str, Any]:
+def _inputs(
+    request: AnalysisRequest, segment: StrainSegment, spectrum: NoiseSpectrum | None
+) -> dict[str, Any]:
     strain = {
         "file": request.strain_path.name,
         "sha256": sha256_file(request.strain_path),
@@ -89,11 +102,16 @@ def _inputs(request: AnalysisRequest, segment: StrainSegment, spectrum: NoiseSpe
     }
     psd: dict[str, Any]
     if request.psd_path is not None and spectrum is not None:
-        psd = {"file": request.psd_path.name, "sha256": sha256_file(request.psd_path),
-               "kind": "amplitude spectral density" if request.asd else "power spectral density"}
+        psd = {
+            "file": request.psd_path.name,
+            "sha256": sha256_file(request.psd_path),
+            "kind": "amplitude spectral density" if request.asd else "power spectral density",
+        }
     else:
-        psd = {"estimated": True,
-               "method": "Welch's method with the median average over the analysed segment"}
+        psd = {
+            "estimated": True,
+            "method": "Welch's method with the median average over the analysed segment",
+        }
     return {"strain": strain, "psd": psd}
 
 
@@ -105,8 +123,9 @@ def analyze_files(
     check_output_folder(Path(out_dir), OUTPUT_FILES)
     if progress is not None:
         progress("reading", 0.0, 0.0)
-    segment = read_strain(request.strain_path, sample_rate=request.sample_rate,
-                          start_time=request.start_time)
+    segment = read_strain(
+        request.strain_path, sample_rate=request.sample_rate, start_time=request.start_time
+    )
     spectrum = read_psd(request.psd_path, asd=request.asd) if request.psd_path else None
     inputs = _inputs(request, segment, spectrum)
     reading = time.perf_counter() - clock
@@ -143,17 +162,42 @@ def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folde
     pool = _plot_pool()
     pending = pool.submit(_corner, *corner_args, labels) if pool is not None else None
     window = (max(-0.6, float(pd.times[0])), 0.1)
-    plots.whitened_plot(pd.times, pd.whitened_data, pd.whitened_model,
-                        folder / PLOT_FILES["whitened"], window=window, band=(f_low, f_high))
+    plots.whitened_plot(
+        pd.times,
+        pd.whitened_data,
+        pd.whitened_model,
+        folder / PLOT_FILES["whitened"],
+        window=window,
+        band=(f_low, f_high),
+    )
     tf_window = (max(-4.0, float(pd.times[0]), float(pd.track_times[0]) - 0.25), 0.1)
-    plots.time_frequency_plot(pd.times, pd.whitened_data, pd.sample_rate, pd.track_times,
-                              pd.track_frequencies, folder / PLOT_FILES["time_frequency"],
-                              f_low=f_low, f_high=min(f_high, 1024.0), window=tf_window)
-    plots.spectrum_plot(pd.psd_frequencies, pd.psd, pd.data_frequencies, pd.data_asd,
-                        folder / PLOT_FILES["spectrum"], f_low=f_low, f_high=f_high)
-    plots.trace_plot(result.chain.chain, result.chain.names, folder / PLOT_FILES["traces"],
-                     labels={k: PARAMETER_LABELS.get(k, k) for k in result.chain.names},
-                     burn_in=result.chain.burn_in)
+    plots.time_frequency_plot(
+        pd.times,
+        pd.whitened_data,
+        pd.sample_rate,
+        pd.track_times,
+        pd.track_frequencies,
+        folder / PLOT_FILES["time_frequency"],
+        f_low=f_low,
+        f_high=min(f_high, 1024.0),
+        window=tf_window,
+    )
+    plots.spectrum_plot(
+        pd.psd_frequencies,
+        pd.psd,
+        pd.data_frequencies,
+        pd.data_asd,
+        folder / PLOT_FILES["spectrum"],
+        f_low=f_low,
+        f_high=f_high,
+    )
+    plots.trace_plot(
+        result.chain.chain,
+        result.chain.names,
+        folder / PLOT_FILES["traces"],
+        labels={k: PARAMETER_LABELS.get(k, k) for k in result.chain.names},
+        burn_in=result.chain.burn_in,
+    )
     if pending is not None:
         pending.result(timeout=300)
     else:
@@ -201,8 +245,11 @@ def write_outputs(
         summary["diagnostics"]["timings_s"]["report"] = round(time.perf_counter() - clock, 3)
         (tmp / "summary.json").write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
         images = {key: image_data_uri(tmp / name) for key, name in PLOT_FILES.items()}
-        downloads = {"samples.csv": "samples.csv", "summary.json": "summary.json",
-                     **{name: name for name in PLOT_FILES.values()}}
+        downloads = {
+            "samples.csv": "samples.csv",
+            "summary.json": "summary.json",
+            **{name: name for name in PLOT_FILES.values()},
+        }
         html = render_report(summary, images=images, downloads=downloads)
         (tmp / "report.html").write_text(html, encoding="utf-8")
         _replace_folder(tmp, out_dir)
@@ -223,8 +270,10 @@ def check_output_folder(target: Path, expected: set[str]) -> None:
         raise InputError(msg, field="out")
     foreign = sorted(p.name for p in target.iterdir() if p.name not in expected)
     if foreign:
-        msg = (f"output folder {target} already holds other files ({', '.join(foreign[:3])}"
-               f"{', ...' if len(foreign) > 3 else ''}); choose an empty or new folder")
+        msg = (
+            f"output folder {target} already holds other files ({', '.join(foreign[:3])}"
+            f"{', ...' if len(foreign) > 3 else ''}); choose an empty or new folder"
+        )
         raise InputError(msg, field="out")
 
 
@@ -237,4 +286,3 @@ def _replace_folder(new: Path, target: Path) -> None:
         shutil.rmtree(old, ignore_errors=True)
     else:
         new.rename(target)
-

@@ -1,9 +1,9 @@
 """The HTML report of one analysis: display-ready context from ``summary.json``, rendered
 by ``templates/report.html``.
 
-Templates only render; every number is formatted here. Intervals are quoted the way
-measurements usually are (common practice): the uncertainty to two significant
-figures and the median to the same decimal place, e.g. ``1.19754 +0.00012 −0.00011``.
+Templates only render; every number they show is formatted by :mod:`service.formatting`
+(intervals to two significant figures of their uncertainty, common practice), whose
+:func:`format_interval` is re-exported here.
 """
 
 from __future__ import annotations
@@ -17,6 +17,14 @@ from typing import Any
 
 import jinja2
 
+from .formatting import (
+    format_fixed,
+    format_interval,
+    format_percent,
+    format_significant,
+    format_value,
+)
+
 __all__ = [
     "PLOT_ORDER",
     "TEMPLATES_DIR",
@@ -27,7 +35,6 @@ __all__ = [
 ]
 
 TEMPLATES_DIR = Path(__file__).resolve().parents[1] / "templates"
-MINUS = "\u2212"
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 
 #: Row label of each parameter of summary.json.
@@ -56,79 +63,6 @@ UNITS: Mapping[str, str] = {"Msun": "M☉", "": "—"}
 #: Plot keys in report order; their titles and captions live in templates/figures.html.
 PLOT_ORDER = ("corner", "whitened", "time_frequency", "spectrum", "traces")
 _SAFE_SCHEMES = ("http", "https", "data", "file")
-
-
-def _num(value: float, decimals: int) -> str:
-    text = f"{value:.{decimals}f}"
-    return MINUS + text[1:] if text.startswith("-") else text
-
-
-def _sig(value: float, digits: int = 4) -> str:
-    """Shortest readable form with ``digits`` significant figures."""
-    if not math.isfinite(value):
-        return "n/a"
-    if value == 0.0:
-        return "0"
-    text = f"{value:.{digits}g}"
-    if "e" in text:
-        mantissa, exponent = text.split("e")
-        text = f"{mantissa}×10^{int(exponent)}"
-    return text.replace("-", MINUS)
-
-
-def _decimals_for(width: float) -> int:
-    """Decimal places that give ``width`` two significant figures (0 to 12)."""
-    width = float(f"{width:.10g}")  # 0.0999999999 from 1.2 - 1.1 counts as 0.1
-    return min(12, max(0, 1 - math.floor(math.log10(width))))
-
-
-def format_interval(
-    median: float, lower: float, upper: float, *, decimals: int | None = None
-) -> dict[str, str | int]:
-    """Format a median and its credible bounds for display.
-
-    Parameters
-    ----------
-    median, lower, upper
-        The median and the bounds of the credible interval.
-    decimals
-        Decimal places; by default those giving the narrower side of the interval
-        two significant figures (common practice), or 4 significant figures of the
-        median when the interval has no width.
-
-    Returns
-    -------
-    ``median``, ``minus`` (``−0.00011``), ``plus`` (``+0.00012``), ``lower``,
-    ``upper`` as strings, and the ``decimals`` used.
-    """
-    values = (median, lower, upper)
-    if not all(isinstance(v, int | float) and math.isfinite(v) for v in values):
-        na = "n/a"
-        return {"median": na, "minus": na, "plus": na, "lower": na, "upper": na, "decimals": 0}
-    minus, plus = median - lower, upper - median
-    if decimals is None:
-        widths = [w for w in (minus, plus) if w > 0.0]
-        if widths:
-            decimals = _decimals_for(min(widths))
-        elif median != 0.0:
-            decimals = min(12, max(0, 3 - math.floor(math.log10(abs(median)))))
-        else:
-            decimals = 0
-    return {
-        "median": _num(median, decimals), "minus": MINUS + f"{abs(minus):.{decimals}f}",
-        "plus": "+" + f"{abs(plus):.{decimals}f}", "lower": _num(lower, decimals),
-        "upper": _num(upper, decimals), "decimals": decimals,
-    }
-
-
-def _percent(p: float) -> str:
-    if not math.isfinite(p):
-        return "n/a"
-    if p >= 0.995:
-        return "> 99%"
-    if p < 0.005:
-        return "< 1%"
-    return f"{100.0 * p:.0f}%"
 
 
 def _checked_link(href: str, what: str) -> str:
@@ -174,8 +108,8 @@ def _headline(parameters: Mapping[str, Any], probabilities: Mapping[str, Any]) -
         "chirp_mass": pick("chirp_mass"), "distance": pick("luminosity_distance"),
         "m1": pick("source_primary_mass"), "m2": pick("source_secondary_mass"),
         "snr": pick("snr"), "time": pick("coalescence_time"),
-        "ns_possible": None if p_secondary is None else _percent(float(p_secondary)),
-        "both_light": None if p_primary is None else _percent(float(p_primary)),
+        "ns_possible": None if p_secondary is None else format_percent(float(p_secondary)),
+        "both_light": None if p_primary is None else format_percent(float(p_primary)),
     }
 
 
@@ -185,22 +119,7 @@ def _flatten(settings: Mapping[str, Any], prefix: str = "") -> Iterator[tuple[st
         if isinstance(value, Mapping):
             yield from _flatten(value, name + ".")
         else:
-            yield name, _value(value)
-
-
-def _value(value: Any) -> str:
-    if value is None:
-        return "—"
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, float):
-        if not math.isfinite(value):
-            return str(value)
-        text = f"{value:.0f}" if value.is_integer() and abs(value) < 1e15 else repr(value)
-        return text.replace("-", MINUS)
-    if isinstance(value, list | tuple):
-        return "[" + ", ".join(_value(v) for v in value) + "]"
-    return str(value)
+            yield name, format_value(value)
 
 
 def _diagnostics(diag: Mapping[str, Any]) -> dict[str, Any]:
@@ -211,16 +130,16 @@ def _diagnostics(diag: Mapping[str, Any]) -> dict[str, Any]:
     raw = diag.get("likelihood_check")
     check = None if raw is None else {
         "passed": bool(raw.get("passed", False)),
-        "max_abs_difference": _sig(float(raw.get("max_abs_difference", math.nan)), 2),
-        "tolerance": _sig(float(raw.get("tolerance", math.nan)), 2),
-        **{k: _value(raw.get(k)) for k in ("draws", "bins", "refinements")},
+        **{k: format_significant(float(raw.get(k, math.nan)), 2)
+           for k in ("max_abs_difference", "tolerance")},
+        **{k: format_value(raw.get(k)) for k in ("draws", "bins", "refinements")},
     }
     timings = {str(k): float(v) for k, v in diag.get("timings_s", {}).items()}
     return {
         "taus": taus, "ess": f"{float(diag.get('effective_sample_size', math.nan)):,.0f}",
         "acceptance": f"{float(diag.get('acceptance_fraction', math.nan)):.2f}",
         "steps": steps, "converged": diag.get("converged"), "check": check,
-        **{k: _value(diag.get(k)) for k in ("walkers", "burn_in", "thin")},
+        **{k: format_value(diag.get(k)) for k in ("walkers", "burn_in", "thin")},
         "timings": [(k, f"{v:.2f}") for k, v in timings.items()],
         "total_time": f"{sum(timings.values()):.2f}",
     }
@@ -230,12 +149,12 @@ def _inputs(inputs: Mapping[str, Any]) -> dict[str, Any]:
     strain, psd = inputs.get("strain"), inputs.get("psd")
     return {
         "strain": None if not strain else {
-            k: _value(strain.get(k)) for k in ("file", "sha256", "sample_rate", "start_time",
-                                                "duration")},
+            k: format_value(strain.get(k))
+            for k in ("file", "sha256", "sample_rate", "start_time", "duration")},
         "psd": None if not psd else {
             "estimated": bool(psd.get("estimated", False)),
             "method": None if psd.get("method") is None else str(psd["method"]),
-            "file": _value(psd.get("file")), "sha256": _value(psd.get("sha256"))},
+            "file": format_value(psd.get("file")), "sha256": format_value(psd.get("sha256"))},
     }
 
 
@@ -247,8 +166,8 @@ def _maximum_likelihood(best: Mapping[str, Any] | None, groups: list[dict[str, A
     rows = []
     for name, value in best.items():
         v = float(value)
-        text = _num(v, 2) if name == "log_likelihood" else (
-            _num(v, decimals[name]) if name in decimals else _sig(v, 6))
+        text = format_fixed(v, 2) if name == "log_likelihood" else (
+            format_fixed(v, decimals[name]) if name in decimals else format_significant(v, 6))
         rows.append({"label": "log likelihood" if name == "log_likelihood"
                      else LABELS.get(name, name), "value": text})
     return rows
@@ -291,7 +210,7 @@ def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
         "downloads": None if not downloads else [
             (name, _checked_link(href, f"download {name!r}")) for name, href in downloads.items()],
         "share_url": share_url, "settings": list(_flatten(settings)),
-        "inputs": _inputs(summary.get("inputs", {})), "seed": _value(settings.get("seed")),
+        "inputs": _inputs(summary.get("inputs", {})), "seed": format_value(settings.get("seed")),
         "software": f"{software.get('name', 'chirpcast')} {software.get('version', '')}".strip(),
         "schema_version": summary.get("schema_version"),
     }

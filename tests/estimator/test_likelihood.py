@@ -65,15 +65,22 @@ def test_frequency_domain_snr_equals_time_domain_matched_filter():
     """
     fs, duration, f_low, f_high = 2048.0, 16.0, 20.0, 800.0
     n = int(fs * duration)
-    inj = Injection(chirp_mass=12.0, mass_ratio=0.6, effective_distance=400.0,
-                    coalescence_time=START + 12.0)
+    inj = Injection(
+        chirp_mass=12.0, mass_ratio=0.6, effective_distance=400.0, coalescence_time=START + 12.0
+    )
     h_f = injection_strain(inj, n_samples=n, sample_rate=fs, start_time=START, f_start=15.0)
     h_t = scipy.fft.irfft(h_f, n) * fs
     blank = StrainSegment(np.zeros(n), fs, START)
     data = condition(blank, SPECTRUM, f_low=f_low, f_high=f_high)
     like = ExactLikelihood([data], inj.coalescence_time)
-    _, hh = like.overlaps(_params(chirp_mass=inj.chirp_mass, mass_ratio=inj.mass_ratio,
-                                  effective_distance=inj.effective_distance, coalescence_time=0.0))
+    _, hh = like.overlaps(
+        _params(
+            chirp_mass=inj.chirp_mass,
+            mass_ratio=inj.mass_ratio,
+            effective_distance=inj.effective_distance,
+            coalescence_time=0.0,
+        )
+    )
     snr_fd = float(np.sqrt(hh[0, 0]))
 
     # Time-domain route: <h|h> = int h(t) (q * h)(t) dt with q the inverse-noise filter,
@@ -99,8 +106,9 @@ def test_exact_likelihood_matches_direct_inner_products(noise_data):
     tc = rng.uniform(-0.1, 0.1, 6)
     ref = START + 20.0
     like = ExactLikelihood([data], ref)
-    got = like.log_likelihood(_params(chirp_mass=mc, mass_ratio=q, effective_distance=dist,
-                                      coalescence_time=tc))
+    got = like.log_likelihood(
+        _params(chirp_mass=mc, mass_ratio=q, effective_distance=dist, coalescence_time=tc)
+    )
     h = taylorf2(data.frequencies, mc, q, dist, tc + ref - data.epoch)
     z = data.inner(data.strain[None, :], h)
     hh = data.inner(h, h).real
@@ -117,16 +125,28 @@ def test_phase_marginalisation_equals_quadrature():
     from its large-argument limit.
     """
     rng = np.random.default_rng(8)
-    seg = simulate_segment(SPECTRUM, duration=8.0, sample_rate=2048.0, start_time=START, rng=rng,
-                           injection=Injection(20.0, 0.8, 3000.0, START + 6.0, 0.4))
+    seg = simulate_segment(
+        SPECTRUM,
+        duration=8.0,
+        sample_rate=2048.0,
+        start_time=START,
+        rng=rng,
+        injection=Injection(20.0, 0.8, 3000.0, START + 6.0, 0.4),
+    )
     data = condition(seg, SPECTRUM, f_low=20.0, f_high=900.0)
     p = dict(chirp_mass=20.1, mass_ratio=0.8, effective_distance=3200.0, coalescence_time=0.001)
     like = ExactLikelihood([data], START + 6.0)
     got = float(like.log_likelihood(_params(**p))[0])
 
     def integrand(phi: float) -> float:
-        h = taylorf2(data.frequencies, p["chirp_mass"], p["mass_ratio"], p["effective_distance"],
-                     p["coalescence_time"] + 6.0, phi)
+        h = taylorf2(
+            data.frequencies,
+            p["chirp_mass"],
+            p["mass_ratio"],
+            p["effective_distance"],
+            p["coalescence_time"] + 6.0,
+            phi,
+        )
         return float(np.exp(data.inner(data.strain, h).real - 0.5 * data.inner(h, h).real))
 
     total, _ = scipy.integrate.quad(integrand, 0.0, 2.0 * np.pi, limit=200)
@@ -147,21 +167,34 @@ def test_relative_binning_matches_exact_near_fiducial(mc, q):
     duration = 64.0 if mc < 2 else 8.0
     tc = START + duration - 2.0
     inj = Injection(mc, q, 120.0 if mc < 2 else 900.0, tc, 0.3)
-    seg = simulate_segment(SPECTRUM, duration=duration, sample_rate=2048.0, start_time=START,
-                           rng=rng, injection=inj, f_start=25.0)
+    seg = simulate_segment(
+        SPECTRUM,
+        duration=duration,
+        sample_rate=2048.0,
+        start_time=START,
+        rng=rng,
+        injection=inj,
+        f_start=25.0,
+    )
     data = condition(seg, SPECTRUM, f_low=30.0, f_high=900.0)
-    fid = {"chirp_mass": mc, "mass_ratio": q, "effective_distance": inj.effective_distance,
-           "coalescence_time": 0.0}
+    fid = {
+        "chirp_mass": mc,
+        "mass_ratio": q,
+        "effective_distance": inj.effective_distance,
+        "coalescence_time": 0.0,
+    }
     exact = ExactLikelihood([data], tc)
     binned = RelativeBinningLikelihood([data], tc, fid, n_bins=96)
     # Candidate points scattered about the fiducial; keep those a posterior would hold
     # (within 10 of the peak log-likelihood: > 99.8% of a 4-D Gaussian's mass).
     n = 4000
     rel = 3e-5 if mc < 2 else 3e-3
-    pts = _params(chirp_mass=mc * (1 + rel * rng.standard_normal(n)),
-                  mass_ratio=np.clip(q + 0.1 * rng.standard_normal(n), 0.1, 1.0),
-                  effective_distance=inj.effective_distance * (1 + 0.1 * rng.standard_normal(n)),
-                  coalescence_time=5e-4 * rng.standard_normal(n))
+    pts = _params(
+        chirp_mass=mc * (1 + rel * rng.standard_normal(n)),
+        mass_ratio=np.clip(q + 0.1 * rng.standard_normal(n), 0.1, 1.0),
+        effective_distance=inj.effective_distance * (1 + 0.1 * rng.standard_normal(n)),
+        coalescence_time=5e-4 * rng.standard_normal(n),
+    )
     b_all = binned.log_likelihood(pts)
     keep = np.flatnonzero(b_all > b_all.max() - 10.0)[:60]
     assert keep.size >= 30

@@ -27,20 +27,41 @@ SPECTRUM = design_spectrum()
 START = 1_000_000_000.0
 
 
-def _inject(mc: float, q: float, snr: float, *, duration: float, rate: float, f_low: float,
-            w: float, seed: int) -> tuple[Injection, float, object]:
+def _inject(
+    mc: float,
+    q: float,
+    snr: float,
+    *,
+    duration: float,
+    rate: float,
+    f_low: float,
+    w: float,
+    seed: int,
+) -> tuple[Injection, float, object]:
     tc = START + duration - 2.0
     unit = Injection(mc, q, 1000.0, tc, 1.3)
-    rho = optimal_snr(unit, SPECTRUM, duration=duration, sample_rate=rate, start_time=START,
-                      f_low=f_low)
+    rho = optimal_snr(
+        unit, SPECTRUM, duration=duration, sample_rate=rate, start_time=START, f_low=f_low
+    )
     inj = Injection(mc, q, 1000.0 * rho / snr, tc, 1.3)
-    seg = simulate_segment(SPECTRUM, duration=duration, sample_rate=rate, start_time=START,
-                           rng=np.random.default_rng(seed), injection=inj, f_start=f_low - 5)
+    seg = simulate_segment(
+        SPECTRUM,
+        duration=duration,
+        sample_rate=rate,
+        start_time=START,
+        rng=np.random.default_rng(seed),
+        injection=inj,
+        f_start=f_low - 5,
+    )
     return inj, inj.effective_distance * w, seg
 
 
-def _check_recovery(inj: Injection, distance: float, seg: object, settings: AnalysisSettings,
-                    ) -> dict[str, tuple[float, float, float]]:
+def _check_recovery(
+    inj: Injection,
+    distance: float,
+    seg: object,
+    settings: AnalysisSettings,
+) -> dict[str, tuple[float, float, float]]:
     res = run_analysis(seg, SPECTRUM, settings)  # type: ignore[arg-type]
     derived = derive_samples(res, np.random.default_rng(0))
     truths = {
@@ -73,8 +94,9 @@ def test_binary_neutron_star_like_injection():
     The 0.1% figure is the requirement of the brief; at SNR 20 the expected
     statistical width is a few 1e-4 relative (Cutler & Flanagan 1994, Sec. IV).
     """
-    inj, distance, seg = _inject(1.2, 0.8, 20.0, duration=128.0, rate=2048.0, f_low=25.0,
-                                 w=0.8, seed=102)
+    inj, distance, seg = _inject(
+        1.2, 0.8, 20.0, duration=128.0, rate=2048.0, f_low=25.0, w=0.8, seed=102
+    )
     settings = AnalysisSettings(trigger_time=inj.coalescence_time + 0.003, f_low=25.0, seed=5)
     intervals = _check_recovery(inj, distance, seg, settings)
     median, lo, hi = intervals["chirp_mass"]
@@ -85,8 +107,9 @@ def test_binary_neutron_star_like_injection():
 @pytest.mark.slow
 def test_heavier_system_injection():
     """20 Msun chirp mass, q = 0.6, SNR 20, 16 s at 2048 Hz."""
-    inj, distance, seg = _inject(20.0, 0.6, 20.0, duration=16.0, rate=2048.0, f_low=20.0,
-                                 w=0.6, seed=202)
+    inj, distance, seg = _inject(
+        20.0, 0.6, 20.0, duration=16.0, rate=2048.0, f_low=20.0, w=0.6, seed=202
+    )
     settings = AnalysisSettings(trigger_time=inj.coalescence_time - 0.004, seed=6)
     _check_recovery(inj, distance, seg, settings)
 
@@ -94,8 +117,13 @@ def test_heavier_system_injection():
 def test_same_seed_same_result():
     """Two runs with one seed give identical samples; another seed does not."""
     inj, _, seg = _inject(25.0, 0.8, 15.0, duration=8.0, rate=1024.0, f_low=20.0, w=0.7, seed=3)
-    settings = AnalysisSettings(trigger_time=inj.coalescence_time, seed=42, f_high=400.0,
-                                target_effective_samples=500, max_steps=1200)
+    settings = AnalysisSettings(
+        trigger_time=inj.coalescence_time,
+        seed=42,
+        f_high=400.0,
+        target_effective_samples=500,
+        max_steps=1200,
+    )
     a = run_analysis(seg, SPECTRUM, settings)  # type: ignore[arg-type]
     b = run_analysis(seg, SPECTRUM, settings)  # type: ignore[arg-type]
     for k in a.samples:

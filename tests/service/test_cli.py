@@ -23,11 +23,14 @@ def good(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
     """An 8 s noise segment at 1024 Hz and its spectrum, as CSV files."""
     folder = tmp_path_factory.mktemp("good")
     spectrum = design_spectrum(f_max=2048.0)
-    seg = simulate_segment(spectrum, duration=8.0, sample_rate=RATE, start_time=START,
-                           rng=np.random.default_rng(2))
-    return {"strain": write_strain(seg, folder / "strain", "csv"),
-            "psd": write_psd(spectrum, folder / "psd.csv"),
-            "npy": write_strain(seg, folder / "strain", "npy")}
+    seg = simulate_segment(
+        spectrum, duration=8.0, sample_rate=RATE, start_time=START, rng=np.random.default_rng(2)
+    )
+    return {
+        "strain": write_strain(seg, folder / "strain", "csv"),
+        "psd": write_psd(spectrum, folder / "psd.csv"),
+        "npy": write_strain(seg, folder / "strain", "npy"),
+    }
 
 
 def _run(capsys: pytest.CaptureFixture[str], *argv: object) -> tuple[int, str]:
@@ -51,10 +54,28 @@ def _edit(src: Path, dst: Path, change) -> Path:  # type: ignore[no-untyped-def]
     return dst
 
 
-def _analyze(good: dict[str, Path], out: Path, *extra: object, strain: Path | None = None,
-             psd: Path | None = None, trigger: float = TRIGGER) -> list[object]:
-    return ["--quiet", "analyze", strain or good["strain"], "--psd", psd or good["psd"],
-            "--trigger-time", trigger, "--out", out, "--f-high", 400, *extra]
+def _analyze(
+    good: dict[str, Path],
+    out: Path,
+    *extra: object,
+    strain: Path | None = None,
+    psd: Path | None = None,
+    trigger: float = TRIGGER,
+) -> list[object]:
+    return [
+        "--quiet",
+        "analyze",
+        strain or good["strain"],
+        "--psd",
+        psd or good["psd"],
+        "--trigger-time",
+        trigger,
+        "--out",
+        out,
+        "--f-high",
+        400,
+        *extra,
+    ]
 
 
 def test_missing_file(capsys, good, tmp_path):
@@ -79,8 +100,11 @@ def test_empty_file(capsys, good, tmp_path):
         ("nan", lambda ls: [*ls[:40], ls[40].split(",")[0] + ",nan", *ls[41:]], ["line 41"]),
         ("gap", lambda ls: [*ls[:500], *ls[502:]], ["line 501"]),
         ("order", lambda ls: [*ls[:100], ls[101], ls[100], *ls[102:]], ["line 10"]),
-        ("uncalibrated", lambda ls: [*ls[:60], ls[60].split(",")[0] + ",3.2e-05", *ls[61:]],
-         ["line 61", "3.2e-05", "calibrated"]),
+        (
+            "uncalibrated",
+            lambda ls: [*ls[:60], ls[60].split(",")[0] + ",3.2e-05", *ls[61:]],
+            ["line 61", "3.2e-05", "calibrated"],
+        ),
     ],
 )
 def test_bad_strain_table(capsys, good, tmp_path, name, change, words):
@@ -107,16 +131,22 @@ def test_trigger_outside_or_near_edges(capsys, good, tmp_path, trigger, words):
 
 
 def test_spectrum_not_covering_band(capsys, good, tmp_path):
-    narrow = _edit(good["psd"], tmp_path / "narrow.csv",
-                   lambda ls: [ls[0], *[r for r in ls[1:] if float(r.split(",")[0]) > 60.0]])
+    narrow = _edit(
+        good["psd"],
+        tmp_path / "narrow.csv",
+        lambda ls: [ls[0], *[r for r in ls[1:] if float(r.split(",")[0]) > 60.0]],
+    )
     code, err = _run(capsys, *_analyze(good, tmp_path / "o", psd=narrow))
     assert code == 2
     _assert_clear(err, "narrow.csv", "20")
 
 
 def test_zero_psd_value(capsys, good, tmp_path):
-    zero = _edit(good["psd"], tmp_path / "zero.csv",
-                 lambda ls: [*ls[:300], ls[300].split(",")[0] + ",0", *ls[301:]])
+    zero = _edit(
+        good["psd"],
+        tmp_path / "zero.csv",
+        lambda ls: [*ls[:300], ls[300].split(",")[0] + ",0", *ls[301:]],
+    )
     code, err = _run(capsys, *_analyze(good, tmp_path / "o", psd=zero))
     assert code == 2
     _assert_clear(err, "zero.csv", "line 301")
@@ -157,8 +187,16 @@ def test_usage_error_is_one_line_with_exit_code_2(capsys):
 def test_installed_command_prints_no_traceback(good, tmp_path):
     """The real entry point, in a fresh interpreter."""
     proc = subprocess.run(
-        [sys.executable, "-m", "service.cli", *map(str, _analyze(good, tmp_path / "o", psd=tmp_path / "x"))],
-        capture_output=True, text=True, timeout=120, check=False,
+        [
+            sys.executable,
+            "-m",
+            "service.cli",
+            *map(str, _analyze(good, tmp_path / "o", psd=tmp_path / "x")),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=False,
     )
     assert proc.returncode == 2
     _assert_clear(proc.stderr, "x")
