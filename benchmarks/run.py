@@ -29,7 +29,6 @@ from typing import Any
 import emcee
 import numpy as np
 import scipy
-
 from cases import (
     BNS,
     HEAVY_8S,
@@ -41,6 +40,8 @@ from cases import (
     scaling_source,
     write_drill_files,
 )
+from table import format_table
+
 from estimator.analysis import AnalysisSettings, run_analysis
 from estimator.conditioning import condition
 from estimator.io import read_strain
@@ -49,7 +50,6 @@ from estimator.relbin import RelativeBinningLikelihood
 from estimator.validation import default_f_high
 from service.drill import write_strain
 from service.pipeline import AnalysisRequest, analyze_files
-from table import format_table
 
 __all__ = ["bench_e2e", "bench_likelihood", "bench_scaling", "machine_facts", "main"]
 
@@ -80,16 +80,22 @@ def machine_facts() -> dict[str, Any]:
     """Date, CPUs, versions and thread settings of this run."""
     threads = {k: os.environ[k] for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS",
                                           "MKL_NUM_THREADS") if k in os.environ}
+    try:
+        blas = str(np.show_config(mode="dicts")["Build Dependencies"]["blas"]["name"])
+    except (KeyError, TypeError, ValueError):
+        blas = "unknown"
+    usable = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
     return {
         "date": datetime.now(UTC).isoformat(timespec="seconds"),
         "cpu_count": os.cpu_count(),
-        "cpus_usable": len(os.sched_getaffinity(0)),
+        "cpus_usable": usable,
         "platform": platform.platform(),
         "processor": platform.machine(),
         "python": platform.python_version(),
         "numpy": np.__version__,
         "scipy": scipy.__version__,
         "emcee": emcee.__version__,
+        "blas": blas,
         "thread_settings": threads,
         "load_average_start": load(),
     }
@@ -149,7 +155,8 @@ def bench_likelihood(drill: Drill, repeats: int) -> dict[str, Any]:
     return {
         "case": src.name, "frequency_bins": int(data.frequencies.size), "relbin_bins": binned.bins,
         "batch": BATCH, "repeats": repeats, "binned_calls_per_repeat": inner,
-        "exact_s_per_set": statistics.median(exact_t), "binned_s_per_set": statistics.median(binned_t),
+        "exact_s_per_set": statistics.median(exact_t),
+        "binned_s_per_set": statistics.median(binned_t),
         "exact_s_per_set_min": min(exact_t), "binned_s_per_set_min": min(binned_t),
         "ratio": statistics.median(exact_t) / statistics.median(binned_t),
         "exact_setup_s": exact_setup, "binned_setup_s": binned_setup,
@@ -190,7 +197,8 @@ def _e2e_case(drill: Drill, folder: Path, repeats: int) -> dict[str, Any]:
         "min_ess": min(r["ess"] for r in runs),
         "all_converged": all(r["converged"] for r in runs),
         "all_checks_passed": all(r["check_passed"] for r in runs),
-        "stages_s": {k: statistics.median(r["timings_s"].get(k, 0.0) for r in runs) for k in stages},
+        "stages_s": {k: statistics.median(r["timings_s"].get(k, 0.0) for r in runs)
+                     for k in stages},
         "runs": runs,
     }
 
@@ -214,10 +222,10 @@ def bench_e2e(drills: list[Drill], root: Path, repeats: int) -> dict[str, Any]:
 
 def bench_scaling(distance: float, durations: tuple[float, ...], repeats: int) -> dict[str, Any]:
     """Sampling-stage time of the same source in segments of several lengths, one band."""
-    rows = []
+    rows: list[dict[str, Any]] = []
     for duration in durations:
         drill = make_drill(scaling_source(duration, distance))
-        runs = []
+        runs: list[dict[str, Any]] = []
         for r in range(repeats):
             settings = AnalysisSettings(trigger_time=drill.trigger_time, f_low=SCALING_F_LOW,
                                         seed=2000 + r)
@@ -230,8 +238,8 @@ def bench_scaling(distance: float, durations: tuple[float, ...], repeats: int) -
                 f"{runs[-1]['sampling_s']:.1f} s, {runs[-1]['steps']} steps")
         per_step = [1e3 * x["sampling_s"] / x["steps"] for x in runs]
         rows.append({"duration_s": duration, "optimal_snr": drill.optimal_snr,
-                     "frequency_bins": int(round((default_f_high(drill.segment, SPECTRUM)
-                                                  - SCALING_F_LOW) * duration)),
+                     "frequency_bins": round((default_f_high(drill.segment, SPECTRUM)
+                                              - SCALING_F_LOW) * duration),
                      "sampling_s": statistics.median(x["sampling_s"] for x in runs),
                      "sampling_s_per_1000_steps": statistics.median(per_step),
                      "steps": statistics.median(x["steps"] for x in runs),

@@ -24,7 +24,8 @@ def _machine(m: dict[str, Any], repeats: int, quick: bool) -> list[str]:
     return [
         f"chirpcast benchmark, {m['date']}  ({'quick, ' if quick else ''}repeats {repeats})",
         f"machine: {m['cpu_count']} CPUs ({m['cpus_usable']} usable), {m['platform']}; "
-        f"Python {m['python']}, numpy {m['numpy']}, scipy {m['scipy']}, emcee {m['emcee']}"
+        f"Python {m['python']}, numpy {m['numpy']} ({m['blas']}), scipy {m['scipy']}, "
+        f"emcee {m['emcee']}"
         + (f"; threads {m['thread_settings']}" if m["thread_settings"] else ""),
         f"load average (1/5/15 min): start {m['load_average_start']}, end {end}; "
         f"benchmark took {m.get('benchmark_wall_s', 0.0):.0f} s",
@@ -39,8 +40,8 @@ def _likelihood(r: dict[str, Any]) -> list[str]:
         f"bins (binned: {r['relbin_bins']} bins), SNR {r['optimal_snr']:.1f}",
         f"   batch of {r['batch']} sets near the fiducial, median of {r['repeats']} repeats "
         f"(binned: {r['binned_calls_per_repeat']} calls per repeat)",
-        f"   exact   {r['exact_s_per_set'] * 1e3:10.3f} ms   (best {r['exact_s_per_set_min'] * 1e3:.3f}"
-        f" ms; set-up {r['exact_setup_s']:.2f} s)",
+        f"   exact   {r['exact_s_per_set'] * 1e3:10.3f} ms   (best "
+        f"{r['exact_s_per_set_min'] * 1e3:.3f} ms; set-up {r['exact_setup_s']:.2f} s)",
         f"   binned  {r['binned_s_per_set'] * 1e6:10.2f} us   (best "
         f"{r['binned_s_per_set_min'] * 1e6:.2f} us; set-up {r['binned_setup_s']:.2f} s)",
         f"   ratio   {ratio:10.0f} x    aim >= {AIM_RATIO:.0f}x: {_verdict(ratio >= AIM_RATIO)}"
@@ -54,20 +55,22 @@ def _likelihood(r: dict[str, Any]) -> list[str]:
 
 
 def _e2e(r: dict[str, Any], cpus: int) -> list[str]:
-    head = (f"   {'case':<16}{'SNR':>5}{'wall s':>8}{'ESS':>7}{'minESS':>7}  conv check"
+    head = (f"   {'case':<16}{'SNR':>5}{'wall s':>8}{'ESS':>7}{'minESS':>7}{'bins':>5}  conv check"
             + "".join(f"{label:>9}" for label in STAGES.values()))
     lines = ["", f"2. Files to finished report (analyze_files: .npz strain + PSD CSV -> folder "
              f"with report), median of {r['cases'][0]['repeats']}, stage times in s", head]
     for c in r["cases"]:
         lines.append(
             f"   {c['case']:<16}{c['optimal_snr']:5.1f}{c['wall_s']:8.1f}{c['ess']:7.0f}"
-            f"{c['min_ess']:7.0f}  {'yes ' if c['all_converged'] else 'NO  '} "
+            f"{c['min_ess']:7.0f}{max(x['bins'] for x in c['runs']):5d}  "
+            f"{'yes ' if c['all_converged'] else 'NO  '} "
             f"{'pass ' if c['all_checks_passed'] else 'FAIL '}"
             + "".join(f"{c['stages_s'].get(s, 0.0):9.2f}" for s in STAGES))
     bns = r["cases"][0]
     ok = bns["wall_s"] <= AIM_WALL_S and bns["ess"] >= AIM_ESS
     lines.append(f"   aim: {bns['case']} <= {AIM_WALL_S:.0f} s median with >= {AIM_ESS:.0f} "
-                 f"effective samples (2 cores): {_verdict(ok)} on {cpus} usable CPUs")
+                 f"effective samples (2 cores): {_verdict(ok)} on {cpus} usable CPUs; bins: the "
+                 "most relative-binning bins any repeat ended with")
     csv = r["csv_read"]
     lines.append(f"   reading the {csv['case']} strain ({csv['samples']} samples): two-column CSV "
                  f"({csv['csv_mb']:.1f} MB) {csv['csv_read_s']:.2f} s, .npz "
@@ -80,14 +83,15 @@ def _scaling(r: dict[str, Any]) -> list[str]:
              f"{r['effective_distance']:.1f} Mpc), f_low fixed at {r['f_low']:g} Hz for every "
              f"length, median of {r['repeats']}",
              f"   {'T s':>6}{'freq bins':>11}{'SNR':>6}{'sampling s':>12}{'ratio':>7}"
-             f"{'steps':>7}{'s/1000 steps':>14}{'ratio':>7}{'ESS':>7}"]
+             f"{'steps':>7}{'s/1000 steps':>14}{'ratio':>7}{'ESS':>7}{'bins':>5}"]
     for row in r["rows"]:
         lines.append(
             f"   {row['duration_s']:6.0f}{row['frequency_bins']:11d}{row['optimal_snr']:6.1f}"
             f"{row['sampling_s']:12.2f}{row['ratio_to_first']:7.2f}{row['steps']:7.0f}"
             f"{row['sampling_s_per_1000_steps']:14.2f}{row['per_step_ratio_to_first']:7.2f}"
-            f"{row['ess']:7.0f}")
-    lines.append("   aim: nearly flat (ratios to the shortest segment close to 1)")
+            f"{row['ess']:7.0f}{max(x['bins'] for x in row['runs']):5d}")
+    lines.append("   aim: nearly flat (ratios to the shortest segment close to 1); bins: the most "
+                 "relative-binning bins any repeat ended with (96 unless the check refined)")
     return lines
 
 

@@ -240,6 +240,7 @@ def run_analysis(
     clock = time.perf_counter()
     reference = settings.trigger_time
     datasets = [data]
+    exact = ExactLikelihood(datasets, reference)
     fiducial = find_fiducial(
         datasets,
         reference,
@@ -253,10 +254,10 @@ def run_analysis(
         time_window=settings.time_window,
         n_bins=settings.n_bins,
         progress=_report(progress, "fiducial"),
+        exact=exact,
     )
     timings["fiducial"] = time.perf_counter() - clock
 
-    exact = ExactLikelihood(datasets, reference)
     n_bins = settings.n_bins
     center = fiducial.params
     sampling_time = check_time = 0.0

@@ -78,6 +78,7 @@ def find_fiducial(
     rounds: int = 3,
     exact_iterations: int = 40,
     progress: Callable[[float], None] | None = None,
+    exact: ExactLikelihood | None = None,
 ) -> Fiducial:
     """Maximise the likelihood over (chirp mass, q, t_c), distance profiled out.
 
@@ -87,7 +88,8 @@ def find_fiducial(
         Starting point by name (``chirp_mass``, ``mass_ratio``, ``coalescence_time``
         relative to ``reference_time``).
     """
-    exact = ExactLikelihood(datasets, reference_time)
+    if exact is None:
+        exact = ExactLikelihood(datasets, reference_time)
     f_low = min(d.f_low for d in datasets)
     scale = _scales(float(start["chirp_mass"]), f_low)[[0, 1, 3]]
     lo = np.array([chirp_mass_range[0], mass_ratio_range[0], -time_window])

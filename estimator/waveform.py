@@ -175,6 +175,23 @@ class PhaseBasis:
         return np.asarray(self.coefficients(chirp_mass, mass_ratio) @ self.basis)
 
 
+def _single_phase(f: Array, chirp_mass: float, mass_ratio: float, orders: tuple[int, ...]
+                  ) -> Array:
+    """The PN phase of one parameter set, evaluated directly (Horner's rule in ``v``)."""
+    eta = float(symmetric_mass_ratio(mass_ratio))
+    total = chirp_mass * eta ** (-0.6) * MSUN_SECONDS
+    v = np.cbrt(np.pi * total * f)
+    log_v = np.log(v)
+    coeffs = phase_coefficients(eta)
+    series = np.zeros_like(v)
+    for k in range(max(orders), -1, -1):
+        series *= v
+        if k in orders:
+            a_k, b_k = (float(c) for c in coeffs[k])
+            series += a_k + b_k * log_v if b_k else a_k
+    return np.asarray(3.0 / (128.0 * eta) * series / v**5, dtype=float)
+
+
 _TABLES: dict[tuple[tuple[int, bool], ...], tuple[Array, Array, Array]] = {}
 
 
@@ -232,7 +249,11 @@ def taylorf2_phase(
     mc = np.atleast_1d(np.asarray(chirp_mass, dtype=float))
     q = np.atleast_1d(np.asarray(mass_ratio, dtype=float))
     mc, q = np.broadcast_arrays(mc, q)
-    phase = PhaseBasis(frequencies, orders).phase(mc, q)
+    if mc.size == 1:
+        phase = _single_phase(np.asarray(frequencies, dtype=float), float(mc[0]), float(q[0]),
+                              orders)[None, :]
+    else:
+        phase = PhaseBasis(frequencies, orders).phase(mc, q)
     return phase[0] if scalar else phase
 
 

@@ -303,7 +303,9 @@ def test_vectorised_call_equals_scalar_calls() -> None:
     for i in range(n):
         single = taylorf2(f, float(mc[i]), float(q[i]), float(dist[i]), float(tc[i]), float(phi[i]))
         assert single.shape == f.shape
-        np.testing.assert_allclose(batch[i], single, rtol=1e-12, atol=0.0)
+        # One parameter set takes a direct (Horner) route, a batch a matrix product: the
+        # phases (~1e3 rad here) agree to rounding, ~1e-12 relative in h.
+        np.testing.assert_allclose(batch[i], single, rtol=1e-10, atol=0.0)
     assert taylorf2_phase(f, mc, q).shape == (n, f.size)
 
 
