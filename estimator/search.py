@@ -49,7 +49,7 @@ MAX_FIRST_STAGE = 200
 #: Half-width of the chirp-mass window carried to the next stage, in template spacings.
 CARRY = 4.0
 #: How many first-stage candidates are followed down to f_low.
-REFINE = 3
+REFINE = 2
 
 
 @dataclass(frozen=True)
@@ -266,10 +266,15 @@ def search_chirp_mass(
     best: SearchResult | None = None
     for j, (snr, f_s, mc, peak) in enumerate(first[:n_jobs]):
         stages = [(f_s, snr)]
+        q = q_first
         while True:
-            final = f_s <= f_low * 1.0001
+            at_floor = f_s <= f_low * 1.0001
+            f_next = f_s if at_floor else max(f_low, f_s / 2.0)
+            final = f_next <= f_low * 1.0001
+            # The window carried to the next stage; wider for the last one, where the
+            # other mass ratios (whose best chirp mass lies elsewhere on the ridge) are tried.
             step = SPACING / f_s
-            carry = CARRY * (3.0 if final else 1.0)
+            carry = CARRY * (2.0 if final else 1.0)
             tau_best = float(chirp_time(mc, f_s))
             mc_lo = max(lo, float(_chirp_mass_from_tau(tau_best + carry * step, f_s)))
             mc_hi = (
@@ -277,12 +282,12 @@ def search_chirp_mass(
                 if tau_best <= carry * step
                 else min(hi, float(_chirp_mass_from_tau(tau_best - carry * step, f_s)))
             )
+            f_s = f_next
             if final:
-                trials = [(*run_stage(f_s, mc_lo, mc_hi, q), q) for q in mass_ratios]
+                trials = [(*run_stage(f_s, mc_lo, mc_hi, r), r) for r in mass_ratios]
                 mc, snr, peak, q = max(trials, key=lambda t: t[1])
                 stages.append((f_s, snr))
                 break
-            f_s = max(f_low, f_s / 2.0)
             mc, snr, peak = run_stage(f_s, mc_lo, mc_hi, q_first)
             stages.append((f_s, snr))
         if best is None or snr > best.snr:
