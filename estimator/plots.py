@@ -248,8 +248,8 @@ def trace_plot(
         style_axes(ax)
     if burn_in > 0:
         axes[0].annotate("burn-in (discarded)", xy=(burn_in, 1.0),
-                         xycoords=("data", "axes fraction"), xytext=(-4, -10),
-                         textcoords="offset points", ha="right", fontsize=7,
+                         xycoords=("data", "axes fraction"), xytext=(4, -9),
+                         textcoords="offset points", ha="left", fontsize=7,
                          color=PALETTE["accent"])
     axes[-1].set_xlabel(f"step ({n_walkers} walkers; dark line: median across walkers)")
     fig.align_ylabels(axes)

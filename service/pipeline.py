@@ -28,7 +28,7 @@ from estimator.data import NoiseSpectrum, StrainSegment
 from estimator.errors import InputError
 from estimator.io import read_psd, read_strain, sha256_file
 from estimator.products import plot_data
-from estimator.summary import PARAMETER_LABELS, build_summary, derive_samples
+from estimator.summary import PARAMETER_LABELS, PARAMETER_UNITS, build_summary, derive_samples
 
 from .report import image_data_uri, render_report
 
@@ -195,13 +195,22 @@ def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folde
         result.chain.chain,
         result.chain.names,
         folder / PLOT_FILES["traces"],
-        labels={k: PARAMETER_LABELS.get(k, k) for k in result.chain.names},
+        labels={
+            **{k: _with_unit(k) for k in result.chain.names},
+            "coalescence_time": "t_c − trigger [s]",
+        },
         burn_in=result.chain.burn_in,
     )
     if pending is not None:
         pending.result(timeout=300)
     else:
         _corner(*corner_args, labels)
+
+
+def _with_unit(name: str) -> str:
+    unit = PARAMETER_UNITS.get(name, "")
+    label = PARAMETER_LABELS.get(name, name)
+    return f"{label} [{unit}]" if unit else label
 
 
 def _corner(samples: Mapping[str, np.ndarray], path: Path, labels: Mapping[str, str]) -> Path:
