@@ -15,20 +15,15 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
-import platform
 import statistics
 import sys
 import tempfile
 import time
 from collections.abc import Callable
-from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
-import emcee
 import numpy as np
-import scipy
 from cases import (
     BNS,
     HEAVY_8S,
@@ -40,6 +35,7 @@ from cases import (
     scaling_source,
     write_drill_files,
 )
+from machine import load, machine_facts, say, since_start
 from table import format_table
 
 from estimator.analysis import AnalysisSettings, run_analysis
@@ -51,7 +47,7 @@ from estimator.validation import default_f_high
 from service.drill import write_strain
 from service.pipeline import AnalysisRequest, analyze_files
 
-__all__ = ["bench_e2e", "bench_likelihood", "bench_scaling", "machine_facts", "main"]
+__all__ = ["bench_e2e", "bench_likelihood", "bench_scaling", "main"]
 
 HERE = Path(__file__).resolve().parent
 SECTIONS = ("likelihood", "e2e", "scaling")
@@ -62,45 +58,6 @@ MIN_LIKELIHOOD_REPEATS = 7
 #: (relative), mass ratio, effective distance (relative), coalescence time (s).
 SPREAD = {"chirp_mass": 3e-5, "mass_ratio": 0.01, "effective_distance": 0.05,
           "coalescence_time": 1e-4}
-_T0 = time.perf_counter()
-
-
-def say(message: str) -> None:
-    """A progress line on stderr, stamped with the seconds since the run began."""
-    sys.stderr.write(f"[{time.perf_counter() - _T0:7.1f} s] {message}\n")
-    sys.stderr.flush()
-
-
-def load() -> list[float]:
-    """The 1, 5 and 15 minute load averages."""
-    return [round(x, 2) for x in os.getloadavg()]
-
-
-def machine_facts() -> dict[str, Any]:
-    """Date, CPUs, versions and thread settings of this run."""
-    threads = {k: os.environ[k] for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS",
-                                          "MKL_NUM_THREADS") if k in os.environ}
-    try:
-        blas = str(np.show_config(mode="dicts")["Build Dependencies"]["blas"]["name"])
-    except (KeyError, TypeError, ValueError):
-        blas = "unknown"
-    usable = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
-    return {
-        "date": datetime.now(UTC).isoformat(timespec="seconds"),
-        "cpu_count": os.cpu_count(),
-        "cpus_usable": usable,
-        "platform": platform.platform(),
-        "processor": platform.machine(),
-        "python": platform.python_version(),
-        "numpy": np.__version__,
-        "scipy": scipy.__version__,
-        "emcee": emcee.__version__,
-        "blas": blas,
-        "thread_settings": threads,
-        "load_average_start": load(),
-    }
-
-
 def _timed(call: Callable[[], object], inner: int = 1) -> float:
     clock = time.perf_counter()
     for _ in range(inner):
@@ -125,6 +82,9 @@ def bench_likelihood(drill: Drill, repeats: int) -> dict[str, Any]:
     clock = time.perf_counter()
     binned = RelativeBinningLikelihood([data], reference, fiducial, n_bins=n_bins)
     binned_setup = time.perf_counter() - clock
+    # The exact likelihood shares the frequency axis among threads; one thread as well,
+    # for the cost in CPU terms next to the single-threaded binned one.
+    single = ExactLikelihood([data], reference, workers=1)
     # Twice the bins: what the analysis refines to when the default fails its check.
     refined = RelativeBinningLikelihood([data], reference, fiducial, n_bins=2 * n_bins)
     rng = np.random.default_rng(7)
@@ -139,30 +99,48 @@ def bench_likelihood(drill: Drill, repeats: int) -> dict[str, Any]:
         + SPREAD["coalescence_time"] * noise["coalescence_time"],
     }
     ln_exact = exact.log_likelihood(params)  # also the warm-up calls
+    single.log_likelihood(params)
     ln_binned = binned.log_likelihood(params)
     ln_refined = refined.log_likelihood(params)
-    # The binned batch takes well under a millisecond: time enough calls for ~20 ms.
-    inner = int(np.clip(np.ceil(0.02 / max(_timed(lambda: binned.log_likelihood(params)), 1e-7)),
-                        1, 1000))
-    exact_t, binned_t, refined_t = [], [], []
+    # A binned batch takes well under a millisecond: each repeat times enough calls for
+    # ~0.1 s, half just before and half just after the exact batch, so that both see the
+    # same load; the ratio is taken within each repeat, then the median over repeats.
+    half = int(np.clip(np.ceil(0.05 / max(_timed(lambda: binned.log_likelihood(params)), 1e-7)),
+                       1, 500))
+    exact_t: list[float] = []
+    binned_t: list[float] = []
+    refined_t: list[float] = []
+    single_t: list[float] = []
     for r in range(repeats):
+        before = _timed(lambda: binned.log_likelihood(params), half)
+        before_refined = _timed(lambda: refined.log_likelihood(params), half)
         exact_t.append(_timed(lambda: exact.log_likelihood(params)) / BATCH)
-        binned_t.append(_timed(lambda: binned.log_likelihood(params), inner) / BATCH)
-        refined_t.append(_timed(lambda: refined.log_likelihood(params), inner) / BATCH)
+        single_t.append(_timed(lambda: single.log_likelihood(params)) / BATCH)
+        after_refined = _timed(lambda: refined.log_likelihood(params), half)
+        after = _timed(lambda: binned.log_likelihood(params), half)
+        binned_t.append(0.5 * (before + after) / BATCH)
+        refined_t.append(0.5 * (before_refined + after_refined) / BATCH)
         say(f"likelihood repeat {r + 1}/{repeats}: exact {exact_t[-1] * 1e3:.2f} ms, "
-            f"binned {binned_t[-1] * 1e6:.2f} us per parameter set")
+            f"binned {binned_t[-1] * 1e6:.2f} us per parameter set, ratio "
+            f"{exact_t[-1] / binned_t[-1]:.0f}")
+    ratios = [e / b for e, b in zip(exact_t, binned_t, strict=True)]
+    refined_ratios = [e / b for e, b in zip(exact_t, refined_t, strict=True)]
+    single_ratios = [e / b for e, b in zip(single_t, binned_t, strict=True)]
     ln_fid = exact.log_likelihood({k: np.array([v]) for k, v in fiducial.items()})[0]
     return {
         "case": src.name, "frequency_bins": int(data.frequencies.size), "relbin_bins": binned.bins,
-        "batch": BATCH, "repeats": repeats, "binned_calls_per_repeat": inner,
+        "batch": BATCH, "repeats": repeats, "binned_calls_per_repeat": 2 * half,
         "exact_s_per_set": statistics.median(exact_t),
         "binned_s_per_set": statistics.median(binned_t),
         "exact_s_per_set_min": min(exact_t), "binned_s_per_set_min": min(binned_t),
-        "ratio": statistics.median(exact_t) / statistics.median(binned_t),
+        "ratio": statistics.median(ratios), "ratio_min": min(ratios), "ratio_max": max(ratios),
+        "ratio_of_best": min(exact_t) / min(binned_t),
         "exact_setup_s": exact_setup, "binned_setup_s": binned_setup,
+        "exact_workers": exact.workers, "single_thread_s_per_set": statistics.median(single_t),
+        "single_thread_ratio": statistics.median(single_ratios),
         "max_abs_difference": float(np.max(np.abs(ln_exact - ln_binned))),
         "refined_bins": refined.bins, "refined_s_per_set": statistics.median(refined_t),
-        "refined_ratio": statistics.median(exact_t) / statistics.median(refined_t),
+        "refined_ratio": statistics.median(refined_ratios),
         "refined_max_abs_difference": float(np.max(np.abs(ln_exact - ln_refined))),
         "median_drop_from_fiducial": float(np.median(ln_fid - ln_exact)),
         "optimal_snr": drill.optimal_snr, "load_average": load(),
@@ -176,23 +154,26 @@ def _e2e_case(drill: Drill, folder: Path, repeats: int) -> dict[str, Any]:
         settings = AnalysisSettings(trigger_time=drill.trigger_time, f_low=drill.source.f_low,
                                     seed=1000 + r)
         request = AnalysisRequest(strain_path=strain, settings=settings, psd_path=psd)
-        clock = time.perf_counter()
+        clock, cpu = time.perf_counter(), time.process_time()
         summary = analyze_files(request, folder / f"out-{r}")
-        wall = time.perf_counter() - clock
+        wall, cpu = time.perf_counter() - clock, time.process_time() - cpu
         diag = summary["diagnostics"]
-        runs.append({"seed": 1000 + r, "wall_s": wall, "ess": diag["effective_sample_size"],
+        runs.append({"seed": 1000 + r, "wall_s": wall, "cpu_s": cpu,
+                     "ess": diag["effective_sample_size"],
                      "steps": diag["steps"], "converged": diag["converged"],
                      "check_passed": diag["likelihood_check"]["passed"],
                      "bins": diag["likelihood_check"]["bins"], "timings_s": diag["timings_s"],
                      "load_average": load()})
         say(f"{drill.source.name} repeat {r + 1}/{repeats}: {wall:.1f} s, "
-            f"ESS {runs[-1]['ess']:.0f}, {runs[-1]['steps']} steps")
+            f"CPU {cpu:.1f} s, ESS {runs[-1]['ess']:.0f}, {runs[-1]['steps']} steps")
     stages = sorted({k for run in runs for k in run["timings_s"]})
     return {
         "case": drill.source.name, "duration_s": drill.source.duration,
         "chirp_mass": drill.source.chirp_mass, "mass_ratio": drill.source.mass_ratio,
         "optimal_snr": drill.optimal_snr, "f_low": drill.source.f_low, "repeats": repeats,
         "wall_s": statistics.median(r["wall_s"] for r in runs),
+        "cpu_s": statistics.median(r["cpu_s"] for r in runs),
+        "min_wall_s": min(r["wall_s"] for r in runs),
         "ess": statistics.median(r["ess"] for r in runs),
         "min_ess": min(r["ess"] for r in runs),
         "all_converged": all(r["converged"] for r in runs),
@@ -258,8 +239,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--repeats", type=int, default=3, help="repeats per case (3)")
     parser.add_argument("--quick", action="store_true", help="one repeat, skip the 512 s segment")
     parser.add_argument("--only", choices=SECTIONS, help="run one section only")
-    parser.add_argument("--json", type=Path, default=HERE / "results.json",
-                        help="where to write the results (benchmarks/results.json)")
+    parser.add_argument("--json", type=Path, help="where to write the results (default "
+                        "benchmarks/results.json; results-quick.json with --quick, "
+                        "results-SECTION.json with --only)")
     args = parser.parse_args(argv)
     if not 1 <= args.repeats <= 50:
         parser.error(f"--repeats {args.repeats} must be between 1 and 50")
@@ -279,10 +261,12 @@ def main(argv: list[str] | None = None) -> int:
         durations = (64.0, 128.0, 256.0) if args.quick else (64.0, 128.0, 256.0, 512.0)
         results["scaling"] = bench_scaling(bns.injection.effective_distance, durations, repeats)
     results["machine"]["load_average_end"] = load()
-    results["machine"]["benchmark_wall_s"] = round(time.perf_counter() - _T0, 1)
-    args.json.write_text(json.dumps(results, indent=2) + "\n", encoding="utf-8")
+    results["machine"]["benchmark_wall_s"] = round(since_start(), 1)
+    name = "results" + ("-quick" if args.quick else "") + (f"-{args.only}" if args.only else "")
+    out = args.json if args.json is not None else HERE / f"{name}.json"
+    out.write_text(json.dumps(results, indent=2) + "\n", encoding="utf-8")
     sys.stdout.write(format_table(results) + "\n")
-    say(f"wrote {args.json}")
+    say(f"wrote {out}")
     return 0
 
 

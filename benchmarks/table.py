@@ -39,13 +39,16 @@ def _likelihood(r: dict[str, Any]) -> list[str]:
         f"1. Likelihood cost per parameter set: {r['case']}, {r['frequency_bins']} frequency "
         f"bins (binned: {r['relbin_bins']} bins), SNR {r['optimal_snr']:.1f}",
         f"   batch of {r['batch']} sets near the fiducial, median of {r['repeats']} repeats "
-        f"(binned: {r['binned_calls_per_repeat']} calls per repeat)",
+        f"(binned: {r['binned_calls_per_repeat']} calls per repeat, around the exact call)",
         f"   exact   {r['exact_s_per_set'] * 1e3:10.3f} ms   (best "
-        f"{r['exact_s_per_set_min'] * 1e3:.3f} ms; set-up {r['exact_setup_s']:.2f} s)",
+        f"{r['exact_s_per_set_min'] * 1e3:.3f} ms; set-up {r['exact_setup_s']:.2f} s; "
+        f"{r['exact_workers']} threads; one thread {r['single_thread_s_per_set'] * 1e3:.3f} ms, "
+        f"ratio {r['single_thread_ratio']:.0f}x)",
         f"   binned  {r['binned_s_per_set'] * 1e6:10.2f} us   (best "
         f"{r['binned_s_per_set_min'] * 1e6:.2f} us; set-up {r['binned_setup_s']:.2f} s)",
         f"   ratio   {ratio:10.0f} x    aim >= {AIM_RATIO:.0f}x: {_verdict(ratio >= AIM_RATIO)}"
-        f"   (load {r['load_average']})",
+        f"   (median of per-repeat ratios; range {r['ratio_min']:.0f}-{r['ratio_max']:.0f}, "
+        f"best-to-best {r['ratio_of_best']:.0f}; load {r['load_average']})",
         f"   on the batch: max |ln L exact - ln L binned| = {r['max_abs_difference']:.4f}; median "
         f"ln L drop from the fiducial {r['median_drop_from_fiducial']:.2f}",
         f"   refined ({r['refined_bins']} bins, used when the analysis' check fails): "
@@ -55,13 +58,14 @@ def _likelihood(r: dict[str, Any]) -> list[str]:
 
 
 def _e2e(r: dict[str, Any], cpus: int) -> list[str]:
-    head = (f"   {'case':<16}{'SNR':>5}{'wall s':>8}{'ESS':>7}{'minESS':>7}{'bins':>5}  conv check"
-            + "".join(f"{label:>9}" for label in STAGES.values()))
+    head = (f"   {'case':<16}{'SNR':>5}{'wall s':>8}{'min':>6}{'CPU s':>7}{'ESS':>7}{'minESS':>7}"
+            f"{'bins':>5}  conv check" + "".join(f"{label:>9}" for label in STAGES.values()))
     lines = ["", f"2. Files to finished report (analyze_files: .npz strain + PSD CSV -> folder "
              f"with report), median of {r['cases'][0]['repeats']}, stage times in s", head]
     for c in r["cases"]:
         lines.append(
-            f"   {c['case']:<16}{c['optimal_snr']:5.1f}{c['wall_s']:8.1f}{c['ess']:7.0f}"
+            f"   {c['case']:<16}{c['optimal_snr']:5.1f}{c['wall_s']:8.1f}{c['min_wall_s']:6.1f}"
+            f"{c['cpu_s']:7.1f}{c['ess']:7.0f}"
             f"{c['min_ess']:7.0f}{max(x['bins'] for x in c['runs']):5d}  "
             f"{'yes ' if c['all_converged'] else 'NO  '} "
             f"{'pass ' if c['all_checks_passed'] else 'FAIL '}"
@@ -69,8 +73,9 @@ def _e2e(r: dict[str, Any], cpus: int) -> list[str]:
     bns = r["cases"][0]
     ok = bns["wall_s"] <= AIM_WALL_S and bns["ess"] >= AIM_ESS
     lines.append(f"   aim: {bns['case']} <= {AIM_WALL_S:.0f} s median with >= {AIM_ESS:.0f} "
-                 f"effective samples (2 cores): {_verdict(ok)} on {cpus} usable CPUs; bins: the "
-                 "most relative-binning bins any repeat ended with")
+                 f"effective samples (2 cores): {_verdict(ok)} on {cpus} usable CPUs")
+    lines.append("   wall s: median, min: fastest repeat, CPU s: median process CPU time (all "
+                 "threads); bins: the most relative-binning bins any repeat ended with")
     csv = r["csv_read"]
     lines.append(f"   reading the {csv['case']} strain ({csv['samples']} samples): two-column CSV "
                  f"({csv['csv_mb']:.1f} MB) {csv['csv_read_s']:.2f} s, .npz "

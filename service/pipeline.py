@@ -239,7 +239,7 @@ def write_outputs(
     """Write summary, samples, plots and report to ``out_dir`` (all or nothing)."""
     clock = time.perf_counter()
     if progress is not None:
-        progress("report", 0.0, 0.97)
+        progress("report", 0.0, 0.86)
     rng = np.random.default_rng([result.seed, 1])
     derived = derive_samples(result, rng)
     summary = build_summary(result, derived, inputs=inputs, label=label)
