@@ -132,8 +132,11 @@ def _start_walkers(
     steps = dict(scales)
     cov = np.diag([steps[k] ** 2 for k in PARAMETER_NAMES])
     for _ in range(3):
+        # Steps of about one standard deviation give the curvature best; the mass
+        # ratio, often barely measured, keeps its step inside its unit-wide range.
         cov = curvature_covariance(log_like, center, steps)
-        steps = {k: 0.5 * float(np.sqrt(cov[i, i])) for i, k in enumerate(PARAMETER_NAMES)}
+        steps = {k: float(np.sqrt(cov[i, i])) for i, k in enumerate(PARAMETER_NAMES)}
+        steps["mass_ratio"] = min(steps["mass_ratio"], 0.1)
     mean = np.array([center[k] for k in PARAMETER_NAMES])
     out = np.empty((0, len(PARAMETER_NAMES)))
     for _ in range(100):
@@ -269,14 +272,6 @@ def run_analysis(
         clock = time.perf_counter()
         binned = RelativeBinningLikelihood(datasets, reference, center, n_bins=n_bins)
 
-        def log_post(p: Mapping[str, Array], like: RelativeBinningLikelihood = binned) -> Array:
-            lp = prior.log_prob(p)
-            out = np.full(lp.shape, -np.inf)
-            ok = np.isfinite(lp)
-            if np.any(ok):
-                out[ok] = lp[ok] + like.log_likelihood({k: v[ok] for k, v in p.items()})
-            return out
-
         if start is None:
             base = _scales(center["chirp_mass"], settings.f_low)
             scales = {
@@ -288,6 +283,29 @@ def run_analysis(
             start = _start_walkers(
                 rng, prior, binned.log_likelihood, center, scales, settings.walkers
             )
+            # A first look before sampling: points spread twice as widely as the starting
+            # walkers (about as widely as the posterior's tails) must already meet the
+            # tolerance; long, many-cycle signals need more bins than the default.
+            mid = np.array([center[k] for k in PARAMETER_NAMES])
+            wide = mid + 2.0 * (start - mid)
+            wide[:, 1] = np.clip(wide[:, 1], *settings.mass_ratio_range)
+            wide[:, 2] = np.abs(wide[:, 2])
+            points = {k: wide[:, j] for j, k in enumerate(PARAMETER_NAMES)}
+            for _ in range(2):
+                gap = np.max(np.abs(exact.log_likelihood(points) - binned.log_likelihood(points)))
+                if gap <= settings.likelihood_tolerance:
+                    break
+                n_bins *= 2
+                binned = RelativeBinningLikelihood(datasets, reference, center, n_bins=n_bins)
+
+        def log_post(p: Mapping[str, Array], like: RelativeBinningLikelihood = binned) -> Array:
+            lp = prior.log_prob(p)
+            out = np.full(lp.shape, -np.inf)
+            ok = np.isfinite(lp)
+            if np.any(ok):
+                out[ok] = lp[ok] + like.log_likelihood({k: v[ok] for k, v in p.items()})
+            return out
+
         chain = run_ensemble(
             log_post,
             start,

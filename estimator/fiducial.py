@@ -180,8 +180,8 @@ def curvature_covariance(
     """Inverse of the negative Hessian of ``log_like`` at ``center`` (central differences).
 
     The numerical Fisher matrix at the peak (Cutler & Flanagan 1994, Eq. 2.6
-    with the likelihood's own curvature). No direction gets a variance
-    larger than its step size squared (flat or non-positive curvature).
+    with the likelihood's own curvature). No direction gets a standard
+    deviation larger than four step sizes (flat or non-positive curvature).
     """
     names = tuple(names)
     n = len(names)
@@ -206,6 +206,6 @@ def curvature_covariance(
     # Work in units of the steps so that the eigen-decomposition is well scaled.
     fisher = -hess * np.outer(h, h)
     w, v = np.linalg.eigh(0.5 * (fisher + fisher.T))
-    w = np.maximum(w, 1.0)  # no direction wider than one step
+    w = np.maximum(w, 1.0 / 16.0)  # no direction wider than four steps
     cov_u = (v / w) @ v.T
     return np.asarray(cov_u * np.outer(h, h), dtype=float)

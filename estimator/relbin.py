@@ -72,8 +72,10 @@ class _Binned:
     first: NDArray[np.intp]  # index of the first frequency of each bin
     a0: NDArray[np.complex128]
     a1: NDArray[np.complex128]
-    phase0_edges: Array
     basis: PhaseBasis  # of the edge frequencies
+    design: Array  # the basis, the edges (time shift) and -psi0 (PN part) as rows
+    tc0: float  # the fiducial's coalescence time
+    edge_weights: Array  # W_e as (real, imag) columns, shape (n_edges, 2)
     cumulative_norm: Array
     # Running sums of the summary integrands, for the bin the ISCO frequency cuts.
     c0: NDArray[np.complex128]
@@ -133,18 +135,26 @@ class RelativeBinningLikelihood:
             centers = 0.5 * (edges[:-1] + edges[1:])
             a0 = c0[stop] - c0[idx[:-1]]
             a1 = c1[stop] - c1[idx[:-1]] - centers * a0
+            basis = PhaseBasis(edges)
+            widths = np.diff(edges)
+            # sum_b A0_b (R_b + R_b+1)/2 + A1_b (R_b+1 - R_b)/w_b = sum_e W_e R_e.
+            weights = np.zeros(edges.size, dtype=complex)
+            weights[:-1] += 0.5 * a0 - a1 / widths
+            weights[1:] += 0.5 * a0 + a1 / widths
             self._bins.append(
                 _Binned(
                     data=data,
                     edges=edges,
                     centers=centers,
-                    widths=np.diff(edges),
-                    inverse_widths=1.0 / np.diff(edges),
+                    widths=widths,
+                    inverse_widths=1.0 / widths,
                     first=np.asarray(idx[:-1], dtype=np.intp),
                     a0=a0,
                     a1=a1,
-                    phase0_edges=taylorf2_phase(edges, mc0, q0) + 2.0 * np.pi * shift * edges,
-                    basis=PhaseBasis(edges),
+                    basis=basis,
+                    design=np.vstack([basis.basis, edges, -basis.phase(mc0, q0)[0]]),
+                    tc0=tc0,
+                    edge_weights=np.column_stack([weights.real, weights.imag]),
                     cumulative_norm=np.cumsum(f ** (-7.0 / 3.0) * weight),
                     c0=c0,
                     c1=c1,
@@ -166,28 +176,34 @@ class RelativeBinningLikelihood:
         f_isco = isco_frequency(mc * symmetric_mass_ratio(q) ** (-0.6))
         z = np.zeros((len(self._bins), mc.size), dtype=complex)
         hh = np.zeros((len(self._bins), mc.size))
-        rows = np.arange(mc.size)
         for i, b in enumerate(self._bins):
             f_all = b.data.frequencies
-            shift = tc + self.reference_time - b.data.epoch
-            # Phase of h* / h0* = exp(+i (psi - psi0)) at the edges, one matrix product.
-            x = b.basis.phase(mc, q)
-            x += np.outer(2.0 * np.pi * shift, b.edges)
-            x -= b.phase0_edges
-            ratio = amp[:, None] * (np.cos(x) + 1j * np.sin(x))  # conj(h/h0), no ISCO cut
-            r0 = 0.5 * (ratio[:, :-1] + ratio[:, 1:])
-            r1 = (ratio[:, 1:] - ratio[:, :-1]) * b.inverse_widths
-            terms = b.a0 * r0 + b.a1 * r1
+            # Phase of h*/h0* at the edges: the PN series, the time shift from the
+            # fiducial's and -psi0 in one product. It stays small (up to tens of
+            # radians), so single-precision trigonometry is accurate to ~1e-6 rad.
+            coeffs = np.column_stack(
+                [b.basis.coefficients(mc, q), 2.0 * np.pi * (tc - b.tc0), np.ones_like(tc)]
+            )
+            x = (coeffs @ b.design).astype(np.float32)
+            cos = np.cos(x).astype(float)
+            sin = np.sin(x).astype(float)
             n_keep = np.searchsorted(f_all, f_isco, side="right")
             if n_keep.min() >= f_all.size:
-                z[i] = terms.sum(axis=1)  # every ISCO above the band
+                # Every ISCO above the band: z = amp * sum_e W_e exp(i x_e).
+                c_w, s_w = cos @ b.edge_weights, sin @ b.edge_weights
+                z[i] = amp * ((c_w[:, 0] - s_w[:, 1]) + 1j * (c_w[:, 1] + s_w[:, 0]))
             else:
+                ratio = amp[:, None] * (cos + 1j * sin)  # conj(h/h0), no ISCO cut
+                r0 = 0.5 * (ratio[:, :-1] + ratio[:, 1:])
+                r1 = (ratio[:, 1:] - ratio[:, :-1]) * b.inverse_widths
+                terms = b.a0 * r0 + b.a1 * r1
                 # Bins wholly below the ISCO count in full, the one it cuts in part.
                 cut = np.maximum(np.searchsorted(b.first, n_keep, side="right") - 1, 0)
                 full = np.arange(b.first.size)[None, :] < cut[:, None]
                 lo_k = b.first[cut]
                 p0 = b.c0[n_keep] - b.c0[lo_k]
                 p1 = b.c1[n_keep] - b.c1[lo_k] - b.centers[cut] * p0
+                rows = np.arange(mc.size)
                 z[i] = np.sum(np.where(full, terms, 0.0), axis=1)
                 z[i] += p0 * r0[rows, cut] + p1 * r1[rows, cut]
             hh[i] = amp**2 * np.where(n_keep > 0, b.cumulative_norm[np.maximum(n_keep - 1, 0)], 0.0)
