@@ -12,15 +12,17 @@ from __future__ import annotations
 import time
 from collections.abc import Callable, Mapping
 from dataclasses import asdict, dataclass, field
+from functools import partial
 
 import numpy as np
 from numpy.typing import NDArray
 
 from .conditioning import DetectorData, condition
+from .coordinates import ArrivalTime, reference_frequency
 from .data import NoiseSpectrum, StrainSegment
 from .errors import InputError
 from .fiducial import Fiducial, _scales, curvature_covariance, find_fiducial
-from .likelihood import PARAMETER_NAMES, ExactLikelihood
+from .likelihood import ExactLikelihood
 from .priors import InspiralPrior
 from .relbin import RelativeBinningLikelihood
 from .sampler import ChainResult, run_ensemble
@@ -91,7 +93,8 @@ class AnalysisResult:
     data: DetectorData
     search: SearchResult
     fiducial: Fiducial
-    chain: ChainResult
+    chain: ChainResult  # in the sampler's coordinates, see ``coordinates``
+    coordinates: ArrivalTime
     likelihood: RelativeBinningLikelihood
     samples: dict[str, Array]
     sample_log_likelihood: Array
@@ -120,28 +123,36 @@ def _report(progress: Progress | None, stage: str) -> Callable[[float], None]:
     return call
 
 
+def _physical_likelihood(
+    like: RelativeBinningLikelihood, coords: ArrivalTime, u: Mapping[str, Array]
+) -> Array:
+    """Log-likelihood of sampler coordinates ``u``."""
+    return like.log_likelihood(coords.to_physical(u))
+
+
 def _start_walkers(
     rng: np.random.Generator,
-    prior: InspiralPrior,
+    log_prior: Callable[[Mapping[str, Array]], Array],
     log_like: Callable[[Mapping[str, Array]], Array],
     center: dict[str, float],
     scales: dict[str, float],
     walkers: int,
+    names: tuple[str, ...],
 ) -> Array:
     """Walkers drawn from the curvature Gaussian at the fiducial, kept inside the prior."""
     steps = dict(scales)
-    cov = np.diag([steps[k] ** 2 for k in PARAMETER_NAMES])
+    cov = np.diag([steps[k] ** 2 for k in names])
     for _ in range(3):
         # Steps of about one standard deviation give the curvature best; the mass
         # ratio, often barely measured, keeps its step inside its unit-wide range.
-        cov = curvature_covariance(log_like, center, steps)
-        steps = {k: float(np.sqrt(cov[i, i])) for i, k in enumerate(PARAMETER_NAMES)}
+        cov = curvature_covariance(log_like, center, steps, names)
+        steps = {k: float(np.sqrt(cov[i, i])) for i, k in enumerate(names)}
         steps["mass_ratio"] = min(steps["mass_ratio"], 0.1)
-    mean = np.array([center[k] for k in PARAMETER_NAMES])
-    out = np.empty((0, len(PARAMETER_NAMES)))
+    mean = np.array([center[k] for k in names])
+    out = np.empty((0, len(names)))
     for _ in range(100):
         draws = rng.multivariate_normal(mean, cov, size=4 * walkers)
-        lp = prior.log_prob({k: draws[:, i] for i, k in enumerate(PARAMETER_NAMES)})
+        lp = log_prior({k: draws[:, i] for i, k in enumerate(names)})
         out = np.vstack([out, draws[np.isfinite(lp)]])
         if out.shape[0] >= walkers:
             return out[:walkers]
@@ -264,6 +275,8 @@ def run_analysis(
 
     n_bins = settings.n_bins
     center = fiducial.params
+    coords = ArrivalTime(reference_frequency(data, center["chirp_mass"], center["mass_ratio"]))
+    names = coords.names
     sampling_time = check_time = 0.0
     chain: ChainResult | None = None
     check: LikelihoodCheck | None = None
@@ -278,19 +291,27 @@ def run_analysis(
                 "chirp_mass": base[0],
                 "mass_ratio": base[1],
                 "effective_distance": base[2] * center["effective_distance"],
-                "coalescence_time": base[3],
+                "arrival_time": base[3],
             }
+            center_u = {k: float(v[0]) for k, v in coords.from_physical(
+                {k: np.array([v]) for k, v in center.items()}).items()}
             start = _start_walkers(
-                rng, prior, binned.log_likelihood, center, scales, settings.walkers
+                rng,
+                lambda u: prior.log_prob(coords.to_physical(u)),
+                partial(_physical_likelihood, binned, coords),
+                center_u,
+                scales,
+                settings.walkers,
+                names,
             )
             # A first look before sampling: points spread twice as widely as the starting
             # walkers (about as widely as the posterior's tails) must already meet the
             # tolerance; long, many-cycle signals need more bins than the default.
-            mid = np.array([center[k] for k in PARAMETER_NAMES])
+            mid = np.array([center_u[k] for k in names])
             wide = mid + 2.0 * (start - mid)
             wide[:, 1] = np.clip(wide[:, 1], *settings.mass_ratio_range)
             wide[:, 2] = np.abs(wide[:, 2])
-            points = {k: wide[:, j] for j, k in enumerate(PARAMETER_NAMES)}
+            points = coords.to_physical({k: wide[:, j] for j, k in enumerate(names)})
             for _ in range(2):
                 gap = np.max(np.abs(exact.log_likelihood(points) - binned.log_likelihood(points)))
                 if gap <= settings.likelihood_tolerance:
@@ -298,7 +319,8 @@ def run_analysis(
                 n_bins *= 2
                 binned = RelativeBinningLikelihood(datasets, reference, center, n_bins=n_bins)
 
-        def log_post(p: Mapping[str, Array], like: RelativeBinningLikelihood = binned) -> Array:
+        def log_post(u: Mapping[str, Array], like: RelativeBinningLikelihood = binned) -> Array:
+            p = coords.to_physical(u)
             lp = prior.log_prob(p)
             out = np.full(lp.shape, -np.inf)
             ok = np.isfinite(lp)
@@ -309,7 +331,7 @@ def run_analysis(
         chain = run_ensemble(
             log_post,
             start,
-            PARAMETER_NAMES,
+            names,
             seed=seed + refinement,
             max_steps=settings.max_steps,
             target_effective_samples=settings.target_effective_samples,
@@ -318,7 +340,7 @@ def run_analysis(
         sampling_time += time.perf_counter() - clock
 
         clock = time.perf_counter()
-        samples = chain.samples()
+        samples = coords.to_physical(chain.samples())
         n_draw = min(settings.check_draws, samples["chirp_mass"].size)
         pick = rng.choice(samples["chirp_mass"].size, n_draw, replace=False)
         drawn = {k: v[pick] for k, v in samples.items()}
@@ -360,7 +382,7 @@ def run_analysis(
         )
     timings["sampling"] = sampling_time
     timings["likelihood_check"] = check_time
-    samples = chain.samples()
+    samples = coords.to_physical(chain.samples())
     return AnalysisResult(
         settings=settings,
         seed=seed,
@@ -370,6 +392,7 @@ def run_analysis(
         search=found,
         fiducial=fiducial,
         chain=chain,
+        coordinates=coords,
         likelihood=binned,
         samples=samples,
         sample_log_likelihood=binned.log_likelihood(samples),

@@ -162,6 +162,12 @@ def build_summary(
             "autocorrelation_time": {
                 n: float(t) for n, t in zip(chain.names, chain.tau, strict=True)
             },
+            "sampler_coordinates": {
+                "names": list(chain.names),
+                "arrival_time": "coalescence time minus the time to coalescence from the "
+                "reference frequency, relative to the trigger (s)",
+                "reference_frequency": result.coordinates.f_ref,
+            },
             "effective_sample_size": chain.effective_sample_size,
             "samples": int(derived["chirp_mass"].size),
             "acceptance_fraction": chain.acceptance_fraction,

@@ -305,23 +305,28 @@ def taylorf2(
     return h[0] if scalar else h
 
 
-def time_to_coalescence(frequencies: ArrayLike, chirp_mass: float, mass_ratio: float) -> Array:
+def time_to_coalescence(
+    frequencies: ArrayLike, chirp_mass: ArrayLike, mass_ratio: ArrayLike
+) -> Array:
     """Time before coalescence at which the signal sweeps through ``f``, in s.
 
     The stationary-phase time ``t(f) = t_c + (1/2 pi) dPsi/df``
     (Cutler & Flanagan 1994, Eq. 3.3), here as ``t_c - t(f) > 0``, computed
     from the same 3.5PN phase by differentiating the series term by term.
+    Frequencies and masses broadcast against each other (scalar masses give
+    an array shaped like ``atleast_1d(frequencies)``).
     """
     f = np.atleast_1d(np.asarray(frequencies, dtype=float))
-    eta = float(symmetric_mass_ratio(mass_ratio))
-    total = chirp_mass * eta ** (-0.6) * MSUN_SECONDS
+    mc = np.asarray(chirp_mass, dtype=float)
+    eta = symmetric_mass_ratio(mass_ratio)
+    total = mc * eta ** (-0.6) * MSUN_SECONDS
     coeffs = phase_coefficients(eta)
     v = np.cbrt(np.pi * total * f)
+    log_v = np.log(v)
     # d/dv [3/(128 eta) (a_k + b_k ln v) v^{k-5}] and dv/df = v / (3 f).
     dpsi_dv = np.zeros_like(v)
     for k, (a_k, b_k) in coeffs.items():
-        a, b = float(a_k), float(b_k)
-        dpsi_dv += ((k - 5) * (a + b * np.log(v)) + b) * v ** (k - 6)
+        dpsi_dv += ((k - 5) * (a_k + b_k * log_v) + b_k) * v ** (k - 6)
     dpsi_dv *= 3.0 / (128.0 * eta)
     dpsi_df = dpsi_dv * v / (3.0 * f)
     return np.asarray(-dpsi_df / (2.0 * np.pi), dtype=float)

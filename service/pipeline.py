@@ -197,7 +197,7 @@ def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folde
         folder / PLOT_FILES["traces"],
         labels={
             **{k: _with_unit(k) for k in result.chain.names},
-            "coalescence_time": "t_c − trigger [s]",
+            "arrival_time": f"t({result.coordinates.f_ref:.0f} Hz) − trigger [s]",
         },
         burn_in=result.chain.burn_in,
     )

@@ -124,7 +124,10 @@ def _flatten(settings: Mapping[str, Any], prefix: str = "") -> Iterator[tuple[st
 
 def _diagnostics(diag: Mapping[str, Any]) -> dict[str, Any]:
     steps = int(diag.get("steps", 0))
-    taus = [{"name": LABELS.get(k, k), "tau": f"{float(v):.1f}",
+    f_ref = diag.get("sampler_coordinates", {}).get("reference_frequency")
+    arrival = "Arrival time at " + (f"{float(f_ref):.0f} Hz" if f_ref else "f_ref")
+    names = {**LABELS, "arrival_time": arrival}
+    taus = [{"name": names.get(k, k), "tau": f"{float(v):.1f}",
              "ratio": f"{steps / float(v):.0f}" if float(v) > 0 else "n/a"}
             for k, v in diag.get("autocorrelation_time", {}).items()]
     raw = diag.get("likelihood_check")

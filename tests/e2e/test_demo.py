@@ -52,7 +52,7 @@ def test_demo_runs_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixture[str]
         "chirp_mass",
         "mass_ratio",
         "effective_distance",
-        "coalescence_time",
+        "arrival_time",
     }
     # The demo's source (demo_data/README.md) is a heavy system: no neutron star.
     assert summary["probabilities"]["secondary_below_3_msun"] < 0.01
