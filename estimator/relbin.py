@@ -23,15 +23,29 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import NDArray
+from scipy.special import i0e
 
 from .conditioning import DetectorData
 from .likelihood import PARAMETER_NAMES, log_i0, newtonian_amplitude
-from .waveform import PhaseBasis, isco_frequency, symmetric_mass_ratio, taylorf2_phase
+from .waveform import (
+    MPC_SECONDS,
+    MSUN_SECONDS,
+    PhaseBasis,
+    _coefficient_tables,
+    isco_frequency,
+    symmetric_mass_ratio,
+    taylorf2_phase,
+)
 
 __all__ = ["RelativeBinningLikelihood", "bin_edges"]
 
 Array = NDArray[np.float64]
 Params = Mapping[str, Array]
+
+#: Constants of the restricted amplitude and the ISCO frequency (likelihood.py, waveform.py).
+_AMPLITUDE = np.sqrt(5.0 / 24.0) * np.pi ** (-2.0 / 3.0) * MSUN_SECONDS ** (5.0 / 6.0) / MPC_SECONDS
+_ISCO = 1.0 / (6.0**1.5 * np.pi * MSUN_SECONDS)
+_LOG_PI_MSUN = float(np.log(np.pi * MSUN_SECONDS))
 
 _EXPONENTS = np.array([-5.0 / 3.0, -2.0 / 3.0, 1.0, 5.0 / 3.0, 7.0 / 3.0])
 
@@ -64,6 +78,8 @@ def bin_edges(frequencies: Array, n_bins: int) -> Array:
 
 @dataclass
 class _Binned:
+    """Per-detector summary data of the binning (Zackay et al. 2018, Eqs. 7-8)."""
+
     data: DetectorData
     edges: Array  # edge frequencies, (nb+1,)
     centers: Array
@@ -76,10 +92,21 @@ class _Binned:
     design: Array  # the basis, the edges (time shift) and -psi0 (PN part) as rows
     tc0: float  # the fiducial's coalescence time
     edge_weights: Array  # W_e as (real, imag) columns, shape (n_edges, 2)
+    tables: tuple[Array, Array, Array]  # PhaseBasis coefficient tables
     cumulative_norm: Array
     # Running sums of the summary integrands, for the bin the ISCO frequency cuts.
     c0: NDArray[np.complex128]
     c1: NDArray[np.complex128]
+    _cut_cache: dict[int, Array] = field(default_factory=dict, repr=False)
+
+    def cut_weights(self, cut: int) -> Array:
+        """Edge weights ``(n_edges, 2)`` of the bins below bin ``cut`` only."""
+        if cut not in self._cut_cache:
+            weights = np.zeros(self.edges.size, dtype=complex)
+            weights[:cut] += 0.5 * self.a0[:cut] - self.a1[:cut] / self.widths[:cut]
+            weights[1 : cut + 1] += 0.5 * self.a0[:cut] + self.a1[:cut] / self.widths[:cut]
+            self._cut_cache[cut] = np.column_stack([weights.real, weights.imag])
+        return self._cut_cache[cut]
 
 
 @dataclass
@@ -154,6 +181,7 @@ class RelativeBinningLikelihood:
                     basis=basis,
                     design=np.vstack([basis.basis, edges, -basis.phase(mc0, q0)[0]]),
                     tc0=tc0,
+                    tables=_coefficient_tables(basis._layout),
                     edge_weights=np.column_stack([weights.real, weights.imag]),
                     cumulative_norm=np.cumsum(f ** (-7.0 / 3.0) * weight),
                     c0=c0,
@@ -210,7 +238,78 @@ class RelativeBinningLikelihood:
         return z, hh
 
     def log_likelihood(self, params: Params) -> Array:
-        """Phase-marginalised log-likelihood ratio, shape ``(n,)``."""
+        """Phase-marginalised log-likelihood ratio, shape ``(n,)``.
+
+        The same numbers as ``ln I0(|z|) - <h|h>/2`` from :meth:`overlaps`, computed
+        with as few array operations as possible: on every sampler step the calls
+        are small (a few dozen parameter sets), so their number, not arithmetic,
+        sets the cost. Mass-dependent factors share ``ln Mc`` and ``ln eta``; where
+        every ISCO frequency falls in one bin, that bin's edge weights are cached.
+        """
+        mc = np.asarray(params["chirp_mass"], dtype=float)
+        q = np.asarray(params["mass_ratio"], dtype=float)
+        dist = np.asarray(params["effective_distance"], dtype=float)
+        tc = np.asarray(params["coalescence_time"], dtype=float)
+        if mc.ndim != 1:
+            return self._general(params)
+        log_mc = np.log(mc)
+        eta = q / (1.0 + q) ** 2
+        log_eta = np.log(eta)
+        log_total = log_mc - 0.6 * log_eta
+        amp = _AMPLITUDE * np.exp((5.0 / 6.0) * log_mc) / dist
+        f_isco = _ISCO * np.exp(-log_total)
+        log_c = (log_total + _LOG_PI_MSUN) * (1.0 / 3.0)
+        eta_powers = np.vander(eta, 4, increasing=True)
+        total = np.zeros(mc.size)
+        for b in self._bins:
+            poly, log_poly, powers = b.tables
+            coeffs = np.empty((mc.size, powers.size + 2))
+            body = coeffs[:, : powers.size]
+            np.exp(np.outer(log_c, powers) - np.log(eta * (128.0 / 3.0))[:, None], out=body)
+            body *= eta_powers @ poly + log_c[:, None] * (eta_powers @ log_poly)
+            coeffs[:, -2] = 2.0 * np.pi * (tc - b.tc0)
+            coeffs[:, -1] = 1.0
+            x = (coeffs @ b.design).astype(np.float32)
+            cos = np.cos(x).astype(float)
+            sin = np.sin(x).astype(float)
+            f_all = b.data.frequencies
+            if f_isco.min() >= f_all[-1]:
+                c_w = cos @ b.edge_weights
+                s_w = sin @ b.edge_weights
+                zr = c_w[:, 0] - s_w[:, 1]
+                zi = c_w[:, 1] + s_w[:, 0]
+                norm: Array | float = b.cumulative_norm[-1]
+            else:
+                # Bins below every sample's cut bin from cached edge weights; bins between
+                # the lowest and the highest cut removed again where a sample cuts lower;
+                # each sample's cut bin up to its ISCO from running sums.
+                n_keep = np.searchsorted(f_all, f_isco, side="right")
+                cut = np.maximum(np.searchsorted(b.first, n_keep, side="right") - 1, 0)
+                c_lo, c_hi = int(cut.min()), int(cut.max())
+                weights = b.cut_weights(c_hi)
+                c_w = cos @ weights
+                s_w = sin @ weights
+                r = cos[:, c_lo : c_hi + 2] + 1j * sin[:, c_lo : c_hi + 2]
+                r0 = 0.5 * (r[:, :-1] + r[:, 1:])
+                r1 = (r[:, 1:] - r[:, :-1]) * b.inverse_widths[c_lo : c_hi + 1]
+                local = cut - c_lo
+                rows = np.arange(mc.size)
+                lo_k = b.first[cut]
+                p0 = b.c0[n_keep] - b.c0[lo_k]
+                p1 = b.c1[n_keep] - b.c1[lo_k] - b.centers[cut] * p0
+                extra = p0 * r0[rows, local] + p1 * r1[rows, local]
+                if c_hi > c_lo:
+                    terms = b.a0[c_lo:c_hi] * r0[:, :-1] + b.a1[c_lo:c_hi] * r1[:, :-1]
+                    drop = np.arange(c_hi - c_lo)[None, :] >= local[:, None]
+                    extra -= np.sum(np.where(drop, terms, 0.0), axis=1)
+                zr = c_w[:, 0] - s_w[:, 1] + extra.real
+                zi = c_w[:, 1] + s_w[:, 0] + extra.imag
+                norm = np.where(n_keep > 0, b.cumulative_norm[np.maximum(n_keep - 1, 0)], 0.0)
+            absz = amp * np.hypot(zr, zi)
+            total += absz + np.log(i0e(absz)) - 0.5 * amp**2 * norm
+        return total
+
+    def _general(self, params: Params) -> Array:
         z, hh = self.overlaps(params)
         return np.asarray(np.sum(log_i0(np.abs(z)) - 0.5 * hh, axis=0), dtype=float)
 
