@@ -10,27 +10,35 @@ quantities the report shows.
 from __future__ import annotations
 
 import time
-from collections.abc import Callable, Mapping
-from dataclasses import asdict, dataclass, field
-from functools import partial
+from collections.abc import Callable
+from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import NDArray
 
 from .conditioning import DetectorData, condition
-from .coordinates import ArrivalTime, reference_frequency
+from .coordinates import ArrivalTime
 from .data import NoiseSpectrum, StrainSegment
 from .errors import InputError
-from .fiducial import Fiducial, _scales, curvature_covariance, find_fiducial
+from .fiducial import Fiducial, find_fiducial
 from .likelihood import ExactLikelihood
+from .posterior import LikelihoodCheck, sample_posterior
 from .priors import InspiralPrior
 from .relbin import RelativeBinningLikelihood
-from .sampler import ChainResult, run_ensemble
+from .sampler import ChainResult
 from .search import SearchResult, search_chirp_mass, template_duration
+from .settings import AnalysisSettings, settings_dict
 from .spectrum import welch_psd
 from .validation import check_analysis_inputs, default_f_high
 
-__all__ = ["AnalysisResult", "AnalysisSettings", "LikelihoodCheck", "Progress", "run_analysis"]
+__all__ = [
+    "AnalysisResult",
+    "AnalysisSettings",
+    "LikelihoodCheck",
+    "Progress",
+    "run_analysis",
+    "settings_dict",
+]
 
 Array = NDArray[np.float64]
 #: Called with (stage name, fraction of that stage done, overall fraction done).
@@ -39,47 +47,6 @@ Progress = Callable[[str, float, float], None]
 #: Share of the total work each stage takes, for the progress bar.
 #: The rest (to 1) is the caller's: writing the report.
 _STAGES = (("search", 0.12), ("fiducial", 0.12), ("sampling", 0.53), ("check", 0.08))
-
-
-@dataclass(frozen=True)
-class AnalysisSettings:
-    """Everything that controls one analysis (all of it is stored with the result).
-
-    Masses are detector-frame solar masses, distances Mpc, times GPS seconds,
-    frequencies Hz. ``f_high=None`` takes the largest usable frequency;
-    ``seed=None`` draws one (and records it).
-    """
-
-    trigger_time: float
-    f_low: float = 20.0
-    f_high: float | None = None
-    chirp_mass_guess: float | None = None
-    chirp_mass_range: tuple[float, float] = (0.4, 80.0)
-    mass_ratio_range: tuple[float, float] = (0.1, 1.0)
-    component_mass_range: tuple[float, float] = (0.5, 150.0)
-    distance_max: float = 10_000.0
-    time_window: float = 0.1
-    seed: int | None = None
-    walkers: int = 32
-    max_steps: int = 20_000
-    target_effective_samples: float = 2000.0
-    n_bins: int = 96
-    likelihood_tolerance: float = 0.05
-    check_draws: int = 100
-    max_refinements: int = 2
-    taper_duration: float = 0.5
-
-
-@dataclass(frozen=True)
-class LikelihoodCheck:
-    """Relative-binning vs exact log-likelihood on posterior draws."""
-
-    draws: int
-    max_abs_difference: float
-    tolerance: float
-    passed: bool
-    bins: int
-    refinements: int
 
 
 @dataclass
@@ -121,44 +88,6 @@ def _report(progress: Progress | None, stage: str) -> Callable[[float], None]:
             progress(stage, fraction, done + share * min(max(fraction, 0.0), 1.0))
 
     return call
-
-
-def _physical_likelihood(
-    like: RelativeBinningLikelihood, coords: ArrivalTime, u: Mapping[str, Array]
-) -> Array:
-    """Log-likelihood of sampler coordinates ``u``."""
-    return like.log_likelihood(coords.to_physical(u))
-
-
-def _start_walkers(
-    rng: np.random.Generator,
-    log_prior: Callable[[Mapping[str, Array]], Array],
-    log_like: Callable[[Mapping[str, Array]], Array],
-    center: dict[str, float],
-    scales: dict[str, float],
-    walkers: int,
-    names: tuple[str, ...],
-) -> Array:
-    """Walkers drawn from the curvature Gaussian at the fiducial, kept inside the prior."""
-    steps = dict(scales)
-    cov = np.diag([steps[k] ** 2 for k in names])
-    for _ in range(3):
-        # Steps of about one standard deviation give the curvature best; the mass
-        # ratio, often barely measured, keeps its step inside its unit-wide range.
-        cov = curvature_covariance(log_like, center, steps, names)
-        steps = {k: float(np.sqrt(cov[i, i])) for i, k in enumerate(names)}
-        steps["mass_ratio"] = min(steps["mass_ratio"], 0.1)
-    mean = np.array([center[k] for k in names])
-    out = np.empty((0, len(names)))
-    for _ in range(100):
-        draws = rng.multivariate_normal(mean, cov, size=4 * walkers)
-        lp = log_prior({k: draws[:, i] for i, k in enumerate(names)})
-        out = np.vstack([out, draws[np.isfinite(lp)]])
-        if out.shape[0] >= walkers:
-            return out[:walkers]
-        cov = cov * 0.25
-    msg = "could not place the sampler's walkers inside the prior around the fiducial"
-    raise InputError(msg, field="prior")
 
 
 def run_analysis(
@@ -273,115 +202,22 @@ def run_analysis(
     )
     timings["fiducial"] = time.perf_counter() - clock
 
-    n_bins = settings.n_bins
-    center = fiducial.params
-    coords = ArrivalTime(reference_frequency(data, center["chirp_mass"], center["mass_ratio"]))
-    names = coords.names
-    sampling_time = check_time = 0.0
-    chain: ChainResult | None = None
-    check: LikelihoodCheck | None = None
-    start: Array | None = None
-    for refinement in range(settings.max_refinements + 1):
-        clock = time.perf_counter()
-        binned = RelativeBinningLikelihood(datasets, reference, center, n_bins=n_bins)
-
-        if start is None:
-            base = _scales(center["chirp_mass"], settings.f_low)
-            scales = {
-                "chirp_mass": base[0],
-                "mass_ratio": base[1],
-                "effective_distance": base[2] * center["effective_distance"],
-                "arrival_time": base[3],
-            }
-            center_u = {k: float(v[0]) for k, v in coords.from_physical(
-                {k: np.array([v]) for k, v in center.items()}).items()}
-            start = _start_walkers(
-                rng,
-                lambda u: prior.log_prob(coords.to_physical(u)),
-                partial(_physical_likelihood, binned, coords),
-                center_u,
-                scales,
-                settings.walkers,
-                names,
-            )
-            # A first look before sampling: points spread twice as widely as the starting
-            # walkers (about as widely as the posterior's tails) must already meet the
-            # tolerance; long, many-cycle signals need more bins than the default.
-            mid = np.array([center_u[k] for k in names])
-            wide = mid + 2.0 * (start - mid)
-            wide[:, 1] = np.clip(wide[:, 1], *settings.mass_ratio_range)
-            wide[:, 2] = np.abs(wide[:, 2])
-            points = coords.to_physical({k: wide[:, j] for j, k in enumerate(names)})
-            for _ in range(2):
-                gap = np.max(np.abs(exact.log_likelihood(points) - binned.log_likelihood(points)))
-                if gap <= settings.likelihood_tolerance:
-                    break
-                n_bins *= 2
-                binned = RelativeBinningLikelihood(datasets, reference, center, n_bins=n_bins)
-
-        def log_post(u: Mapping[str, Array], like: RelativeBinningLikelihood = binned) -> Array:
-            p = coords.to_physical(u)
-            lp = prior.log_prob(p)
-            out = np.full(lp.shape, -np.inf)
-            ok = np.isfinite(lp)
-            if np.any(ok):
-                out[ok] = lp[ok] + like.log_likelihood({k: v[ok] for k, v in p.items()})
-            return out
-
-        chain = run_ensemble(
-            log_post,
-            start,
-            names,
-            seed=seed + refinement,
-            max_steps=settings.max_steps,
-            target_effective_samples=settings.target_effective_samples,
-            progress=_report(progress, "sampling"),
-        )
-        sampling_time += time.perf_counter() - clock
-
-        clock = time.perf_counter()
-        samples = coords.to_physical(chain.samples())
-        n_draw = min(settings.check_draws, samples["chirp_mass"].size)
-        pick = rng.choice(samples["chirp_mass"].size, n_draw, replace=False)
-        drawn = {k: v[pick] for k, v in samples.items()}
-        diff = np.abs(exact.log_likelihood(drawn) - binned.log_likelihood(drawn))
-        worst = float(np.max(diff))
-        check = LikelihoodCheck(
-            draws=n_draw,
-            max_abs_difference=worst,
-            tolerance=settings.likelihood_tolerance,
-            passed=worst <= settings.likelihood_tolerance,
-            bins=binned.bins,
-            refinements=refinement,
-        )
-        _report(progress, "check")(1.0)
-        check_time += time.perf_counter() - clock
-        if check.passed:
-            break
-        # Refine: re-centre on the best posterior sample and use twice the bins.
-        best = int(np.argmax(chain.sample_log_prob()))
-        center = {k: float(v[best]) for k, v in samples.items()}
-        n_bins *= 2
-        start = chain.chain[-1]
-        notes.append(
-            f"relative-binning check failed (max |difference| {worst:.3f} > "
-            f"{settings.likelihood_tolerance}); refined with a new fiducial and {n_bins} bins"
-        )
-    if chain is None or check is None:  # pragma: no cover - the loop runs at least once
-        msg = "sampling did not run"
-        raise RuntimeError(msg)
-    if not check.passed:
-        notes.append(
-            "relative-binning likelihood still differs from the exact one after "
-            "refinement; treat the intervals with extra caution"
-        )
-    if not chain.converged:
-        notes.append(
-            f"the sampler reached its step cap ({settings.max_steps}) before the "
-            "autocorrelation-time criterion was met; the intervals may be unreliable"
-        )
-    timings["sampling"] = sampling_time
-    timings["likelihood_check"] = check_time
+    run = sample_posterior(
+        datasets,
+        reference,
+        fiducial.params,
+        prior=prior,
+        exact=exact,
+        settings=settings,
+        rng=rng,
+        seed=seed,
+        progress=_report(progress, "sampling"),
+    )
+    _report(progress, "check")(1.0)
+    notes.extend(run.notes)
+    chain, coords, binned, check = run.chain, run.coordinates, run.likelihood, run.check
+    timings["sampling"] = run.sampling_time
+    timings["likelihood_check"] = run.check_time
     samples = coords.to_physical(chain.samples())
     return AnalysisResult(
         settings=settings,
@@ -400,8 +236,3 @@ def run_analysis(
         timings=timings,
         notes=notes,
     )
-
-
-def settings_dict(settings: AnalysisSettings) -> dict[str, object]:
-    """Settings as plain JSON-ready values."""
-    return {k: (list(v) if isinstance(v, tuple) else v) for k, v in asdict(settings).items()}
