@@ -49,6 +49,9 @@ def _likelihood(r: dict[str, Any]) -> list[str]:
         f"   ratio   {ratio:10.0f} x    aim >= {AIM_RATIO:.0f}x: {_verdict(ratio >= AIM_RATIO)}"
         f"   (median of per-repeat ratios; range {r['ratio_min']:.0f}-{r['ratio_max']:.0f}, "
         f"best-to-best {r['ratio_of_best']:.0f}; load {r['load_average']})",
+        f"   plain float64 exact (taylorf2 + inner products, for scale) "
+        f"{r.get('plain_exact_s_per_set', float('nan')) * 1e3:.1f} ms: ratio to binned "
+        f"{r.get('plain_ratio', float('nan')):.0f}x",
         f"   on the batch: max |ln L exact - ln L binned| = {r['max_abs_difference']:.4f}; median "
         f"ln L drop from the fiducial {r['median_drop_from_fiducial']:.2f}",
         f"   refined ({r['refined_bins']} bins, used when the analysis' check fails): "

@@ -46,6 +46,7 @@ Params = Mapping[str, Array]
 _AMPLITUDE = np.sqrt(5.0 / 24.0) * np.pi ** (-2.0 / 3.0) * MSUN_SECONDS ** (5.0 / 6.0) / MPC_SECONDS
 _ISCO = 1.0 / (6.0**1.5 * np.pi * MSUN_SECONDS)
 _LOG_PI_MSUN = float(np.log(np.pi * MSUN_SECONDS))
+_CUBIC = np.arange(4.0)
 
 _EXPONENTS = np.array([-5.0 / 3.0, -2.0 / 3.0, 1.0, 5.0 / 3.0, 7.0 / 3.0])
 
@@ -259,13 +260,13 @@ class RelativeBinningLikelihood:
         amp = _AMPLITUDE * np.exp((5.0 / 6.0) * log_mc) / dist
         f_isco = _ISCO * np.exp(-log_total)
         log_c = (log_total + _LOG_PI_MSUN) * (1.0 / 3.0)
-        eta_powers = np.vander(eta, 4, increasing=True)
+        eta_powers = eta[:, None] ** _CUBIC
         total = np.zeros(mc.size)
         for b in self._bins:
             poly, log_poly, powers = b.tables
             coeffs = np.empty((mc.size, powers.size + 2))
             body = coeffs[:, : powers.size]
-            np.exp(np.outer(log_c, powers) - np.log(eta * (128.0 / 3.0))[:, None], out=body)
+            np.exp(log_c[:, None] * powers - np.log(eta * (128.0 / 3.0))[:, None], out=body)
             body *= eta_powers @ poly + log_c[:, None] * (eta_powers @ log_poly)
             coeffs[:, -2] = 2.0 * np.pi * (tc - b.tc0)
             coeffs[:, -1] = 1.0
@@ -283,8 +284,8 @@ class RelativeBinningLikelihood:
                 # Bins below every sample's cut bin from cached edge weights; bins between
                 # the lowest and the highest cut removed again where a sample cuts lower;
                 # each sample's cut bin up to its ISCO from running sums.
-                n_keep = np.searchsorted(f_all, f_isco, side="right")
-                cut = np.maximum(np.searchsorted(b.first, n_keep, side="right") - 1, 0)
+                n_keep = f_all.searchsorted(f_isco, side="right")
+                cut = np.maximum(b.first.searchsorted(n_keep, side="right") - 1, 0)
                 c_lo, c_hi = int(cut.min()), int(cut.max())
                 weights = b.cut_weights(c_hi)
                 c_w = cos @ weights
