@@ -6,8 +6,24 @@ Arrays and dataclasses in, arrays and dataclasses out; files are read only in
 
 from __future__ import annotations
 
-from .errors import ConvergenceError, EstimatorError, InputError
-
-__all__ = ["ConvergenceError", "EstimatorError", "InputError", "__version__"]
-
 __version__ = "0.1.0"
+
+from .analysis import AnalysisResult, run_analysis
+from .data import NoiseSpectrum, StrainSegment
+from .errors import ConvergenceError, EstimatorError, InputError
+from .io import read_psd, read_strain
+from .settings import AnalysisSettings
+
+__all__ = [
+    "AnalysisResult",
+    "AnalysisSettings",
+    "ConvergenceError",
+    "EstimatorError",
+    "InputError",
+    "NoiseSpectrum",
+    "StrainSegment",
+    "__version__",
+    "read_psd",
+    "read_strain",
+    "run_analysis",
+]
