@@ -1,7 +1,8 @@
 """The ``chirpcast`` command line.
 
 ``chirpcast analyze`` runs the main job on a strain file, ``chirpcast simulate``
-makes a drill data set, ``chirpcast demo`` analyses the shipped demo event.
+makes a drill data set, ``chirpcast demo`` analyses the shipped demo event,
+``chirpcast serve`` runs the web service and ``chirpcast keys add`` makes an API key.
 Exit codes: 0 success, 2 bad input (one clear line on stderr), 1 internal error.
 """
 
@@ -198,7 +199,61 @@ def _parser() -> argparse.ArgumentParser:
         help="strain file format (csv: two columns, GPS time and strain)",
     )
     sim.add_argument("--seed", type=int, default=1, help="noise seed (1)")
+    _add_service_commands(sub)
     return parser
+
+
+def _add_service_commands(sub: Any) -> None:
+    serve = sub.add_parser("serve", help="run the web service and its workers on this machine")
+    serve.add_argument("--host", help="address to listen on (127.0.0.1; another needs API keys)")
+    serve.add_argument("--port", type=int, help="TCP port (8000)")
+    serve.add_argument("--data-dir", type=Path, help="folder of the database and analyses")
+    serve.add_argument("--workers", type=int, help="analysis processes (cores - 1, at least 1)")
+    keys = sub.add_parser("keys", help="manage the service's API keys")
+    keys_sub = keys.add_subparsers(dest="keys_command", required=True, parser_class=_Parser)
+    add = keys_sub.add_parser("add", help="create an API key and print it (shown only once)")
+    add.add_argument("name", help="who the key is for")
+    add.add_argument("--data-dir", type=Path, help="the service's data folder")
+
+
+def _service_settings(args: argparse.Namespace) -> Any:
+    from pydantic import ValidationError
+
+    from .settings import ServiceSettings
+
+    given = {k: getattr(args, k, None) for k in ("host", "port", "data_dir", "workers")}
+    try:
+        return ServiceSettings(**{k: v for k, v in given.items() if v is not None})
+    except ValidationError as err:
+        first = err.errors()[0]
+        name = ".".join(str(p) for p in first["loc"])
+        msg = f"{name}: {first['msg']} (got {first.get('input')!r})"
+        raise InputError(msg, field=name) from err
+
+
+def _run_serve(args: argparse.Namespace) -> int:
+    from .serve import serve
+
+    logging.getLogger().setLevel(logging.DEBUG if args.debug else logging.INFO)
+    settings = _service_settings(args)
+    sys.stderr.write(
+        f"chirpcast: serving http://{settings.host}:{settings.port}/ with"
+        f" {settings.workers} worker(s); data in {settings.data_dir}\n"
+    )
+    return serve(settings)
+
+
+def _run_keys(args: argparse.Namespace) -> int:
+    from .storage import Store
+
+    store = Store(_service_settings(args).data_dir)
+    store.initialize()
+    key = store.add_key(args.name)
+    sys.stdout.write(key + "\n")
+    sys.stderr.write(
+        f"chirpcast: API key for {args.name!r} created; it is shown only now: keep it safe\n"
+    )
+    return EXIT_OK
 
 
 def _settings(args: argparse.Namespace) -> AnalysisSettings:
@@ -300,7 +355,13 @@ def main(argv: Sequence[str] | None = None) -> int:
         level=logging.DEBUG if args.debug else logging.WARNING,
         format="chirpcast: %(levelname)s: %(message)s",
     )
-    commands = {"analyze": _run_analyze, "demo": _run_demo, "simulate": _run_simulate}
+    commands = {
+        "analyze": _run_analyze,
+        "demo": _run_demo,
+        "simulate": _run_simulate,
+        "serve": _run_serve,
+        "keys": _run_keys,
+    }
     try:
         return commands[args.command](args)
     except InputError as err:

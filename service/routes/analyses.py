@@ -1,0 +1,297 @@
+"""REST resource ``/api/v1/analyses``: submit, read, list, cancel, files, events, share."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+import secrets
+import shutil
+import sqlite3
+import time
+from collections.abc import AsyncIterator
+from pathlib import Path
+from typing import IO, Annotated, Any
+
+import anyio
+from fastapi import APIRouter, File, Form, Header, Query, UploadFile
+from fastapi.responses import FileResponse, Response, StreamingResponse
+from pydantic import ValidationError
+
+from estimator.errors import InputError
+
+from .. import jobs
+from ..deps import ApiError, KeyDep, OptionalKeyDep, RateLimitedKeyDep, SettingsDep, StoreDep
+from ..pipeline import OUTPUT_FILES
+from ..schemas import AnalysisCreate, AnalysisList, AnalysisPublic, ShareLink, Submitted
+from ..settings import ServiceSettings
+from ..storage import FINAL_STATES, Analysis, Store, hash_secret
+
+__all__ = ["public_view", "router"]
+
+router = APIRouter(prefix="/api/v1/analyses", tags=["analyses"])
+
+_CHUNK = 1 << 20
+_MEDIA = {".png": "image/png", ".csv": "text/csv", ".json": "application/json",
+          ".html": "text/html"}
+
+
+def _safe_name(filename: str | None, default: str) -> str:
+    name = Path(filename or "").name
+    name = re.sub(r"[^A-Za-z0-9._-]", "_", name).lstrip(".")[:100]
+    return name or default
+
+
+def _save(upload: IO[bytes], target: Path, limit: int, field: str) -> dict[str, Any]:
+    """Copy an upload to ``target`` while hashing it; 413 past ``limit`` bytes, 422 if empty."""
+    digest, size = hashlib.sha256(), 0
+    target.parent.mkdir(parents=True, exist_ok=True)
+    with target.open("wb") as out:
+        while chunk := upload.read(_CHUNK):
+            size += len(chunk)
+            if size > limit:
+                msg = f"{field} file is larger than the limit of {limit} bytes; send a shorter"
+                msg += " segment or ask the operator to raise CHIRPCAST_MAX_UPLOAD_BYTES"
+                raise ApiError(413, "too_large", msg, field=field)
+            digest.update(chunk)
+            out.write(chunk)
+    if size == 0:
+        raise ApiError(422, "empty_file", f"the {field} file is empty; choose the file again",
+                       field=field)
+    return {"file": target.name, "sha256": digest.hexdigest(), "bytes": size}
+
+
+def _parse_settings(text: str) -> AnalysisCreate:
+    try:
+        return AnalysisCreate.model_validate_json(text)
+    except ValidationError as err:
+        first = err.errors()[0]
+        loc = [str(p) for p in first["loc"]]
+        field = loc[0] if loc else "settings"
+        if first["type"] == "json_invalid":
+            msg = f"settings is not valid JSON ({first['msg']}); send an object such as"
+            msg += ' {"trigger_time": 1000000006.0}'
+            raise ApiError(422, "bad_settings", msg, field="settings") from err
+        where = ".".join(loc) or "settings"
+        raise ApiError(422, "bad_settings", f"settings.{where}: {first['msg']}",
+                       field=field) from err
+
+
+def _check_inputs(folder: Path, spec: AnalysisCreate, request: dict[str, Any],
+                  svc: ServiceSettings) -> None:
+    """Read the uploads once (in this worker thread) to answer 422 for bad input now."""
+    from estimator.io import read_psd, read_strain
+
+    try:
+        segment = read_strain(folder / request["strain"], sample_rate=spec.sample_rate,
+                              start_time=spec.start_time)
+    except InputError as err:
+        raise ApiError(422, "bad_input", str(err), field=err.field or "strain") from err
+    if request["psd"]:
+        try:
+            read_psd(folder / request["psd"], asd=spec.asd)
+        except InputError as err:
+            raise ApiError(422, "bad_input", str(err), field=err.field or "psd") from err
+    if segment.duration > svc.max_segment_seconds:
+        msg = f"strain segment is {segment.duration:.0f} s long, more than the limit of"
+        msg += f" {svc.max_segment_seconds:.0f} s; cut it around the trigger time"
+        raise ApiError(422, "segment_too_long", msg, field="strain")
+    end = segment.start_time + segment.duration
+    if not segment.start_time <= spec.trigger_time <= end:
+        msg = f"trigger_time {spec.trigger_time} is outside the strain segment"
+        msg += f" [{segment.start_time}, {end}] GPS s; give the candidate's GPS time"
+        raise ApiError(422, "bad_input", msg, field="trigger_time")
+
+
+def _submitted(store: Store, analysis: Analysis) -> Submitted:
+    token = store.share_token(analysis.id, analysis.share_generation)
+    return Submitted(id=analysis.id, state="queued", status_url=f"/api/v1/analyses/{analysis.id}",
+                     report_url=f"/r/{token}", share_token=token)
+
+
+def public_view(store: Store, analysis: Analysis, *, summary: bool = True,
+                with_share: bool = False) -> AnalysisPublic:
+    """The API view of an analysis (summary and file URLs once done)."""
+    files: dict[str, str] = {}
+    data: dict[str, Any] | None = None
+    out = store.output_dir(analysis.id)
+    if analysis.state == "done":
+        files = {n: f"/api/v1/analyses/{analysis.id}/files/{n}"
+                 for n in sorted(OUTPUT_FILES) if (out / n).is_file()}
+        if summary and (out / "summary.json").is_file():
+            data = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    report_url = None
+    if with_share and analysis.shared:
+        report_url = f"/r/{store.share_token(analysis.id, analysis.share_generation)}"
+    error = None
+    if analysis.state == "failed":
+        error = {"message": analysis.error_message or "failed", "field": analysis.error_field}
+    return AnalysisPublic.model_validate({
+        "id": analysis.id, "state": analysis.state, "stage": analysis.stage,
+        "progress": analysis.progress, "error": error, "label": analysis.label,
+        "created": analysis.created, "updated": analysis.updated, "attempts": analysis.attempts,
+        "summary": data, "status_url": f"/api/v1/analyses/{analysis.id}",
+        "report_url": report_url, "files": files,
+    })
+
+
+def _found(store: Store, analysis_id: str) -> Analysis:
+    analysis = store.get(analysis_id)
+    if analysis is None:
+        raise ApiError(404, "not_found", f"no analysis {analysis_id!r}; check the id")
+    return analysis
+
+
+@router.post("", status_code=202, response_model=Submitted,
+             responses={200: {"model": Submitted, "description": "an idempotent replay"}})
+def submit(
+    store: StoreDep, svc: SettingsDep, owner: RateLimitedKeyDep, response: Response,
+    strain: Annotated[UploadFile, File(description="strain segment: CSV/text, .npy or .npz")],
+    settings: Annotated[str, Form(description="JSON object: trigger_time and options")],
+    psd: Annotated[UploadFile | None, File(description="noise PSD (estimated when absent)")]
+    = None,
+    idempotency_key: Annotated[str | None, Header(max_length=200)] = None,
+) -> Submitted:
+    """Queue an analysis of an uploaded strain segment (files stored before the answer)."""
+    if idempotency_key and (old := store.by_idempotency_key(owner, idempotency_key)):
+        response.status_code = 200
+        return _submitted(store, old)
+    spec = _parse_settings(settings)
+    counts = store.counts()
+    if counts["queued"] >= svc.max_queue:
+        raise ApiError(503, "queue_full", f"{counts['queued']} analyses are waiting, the most"
+                       " this server queues; retry later", headers={"Retry-After": "30"})
+    scratch = store.scratch_dir()
+    try:
+        strain_name = _safe_name(strain.filename, "strain.dat")
+        inputs: dict[str, Any] = {"strain": _save(strain.file, scratch / "strain" / strain_name,
+                                                  svc.max_upload_bytes, "strain"), "psd": None}
+        request: dict[str, Any] = {
+            "strain": f"inputs/strain/{strain_name}", "psd": None, "asd": spec.asd,
+            "sample_rate": spec.sample_rate, "start_time": spec.start_time, "label": spec.label,
+            "settings": spec.model_dump(include={"trigger_time", "f_low", "f_high",
+                                                 "chirp_mass_guess", "seed"}),
+        }
+        if psd is not None and psd.filename:
+            psd_name = _safe_name(psd.filename, "psd.dat")
+            left = svc.max_upload_bytes - inputs["strain"]["bytes"]
+            inputs["psd"] = _save(psd.file, scratch / "psd" / psd_name, left, "psd")
+            request["psd"] = f"inputs/psd/{psd_name}"
+        local = {"strain": f"strain/{strain_name}",
+                 "psd": request["psd"] and request["psd"].removeprefix("inputs/")}
+        _check_inputs(scratch, spec, local, svc)
+        analysis_id = secrets.token_hex(16)
+        folder = store.analysis_dir(analysis_id)
+        folder.mkdir(parents=True)
+        scratch.rename(folder / "inputs")
+    finally:
+        shutil.rmtree(scratch, ignore_errors=True)
+    label = spec.label or Path(strain_name).stem
+    token = store.share_token(analysis_id, 0)
+    try:
+        store.insert_analysis(analysis_id=analysis_id, label=label, request=request,
+                              inputs=inputs, owner=owner, idempotency_key=idempotency_key,
+                              share_hash=hash_secret(token))
+    except sqlite3.IntegrityError:  # a concurrent retry with the same key won
+        shutil.rmtree(folder, ignore_errors=True)
+        old = store.by_idempotency_key(owner, idempotency_key or "")
+        if old is None:
+            raise
+        response.status_code = 200
+        return _submitted(store, old)
+    return Submitted(id=analysis_id, state="queued", status_url=f"/api/v1/analyses/{analysis_id}",
+                     report_url=f"/r/{token}", share_token=token)
+
+
+@router.get("", response_model=AnalysisList)
+def list_analyses(
+    store: StoreDep, owner: KeyDep,
+    limit: Annotated[int, Query(ge=1, le=200)] = 20, offset: Annotated[int, Query(ge=0)] = 0,
+) -> AnalysisList:
+    """Analyses, newest first (without summaries; read one for its summary)."""
+    rows, total = store.list(limit=limit, offset=offset)
+    items = [public_view(store, a, summary=False, with_share=True) for a in rows]
+    return AnalysisList(items=items, total=total, limit=limit, offset=offset)
+
+
+@router.get("/{analysis_id}", response_model=AnalysisPublic)
+def read_analysis(analysis_id: str, store: StoreDep, owner: OptionalKeyDep) -> AnalysisPublic:
+    """State, stage, progress, error or summary of one analysis."""
+    return public_view(store, _found(store, analysis_id), with_share=owner is not None)
+
+
+@router.post("/{analysis_id}/cancel", response_model=AnalysisPublic)
+def cancel_analysis(analysis_id: str, store: StoreDep, owner: KeyDep) -> AnalysisPublic:
+    """Cancel a queued or running analysis (again: no change; 409 once done or failed)."""
+    state = jobs.cancel(store, analysis_id)
+    if state is None:
+        raise ApiError(404, "not_found", f"no analysis {analysis_id!r}; check the id")
+    if state != "cancelled":
+        raise ApiError(409, "already_final", f"analysis {analysis_id} is already {state};"
+                       " only queued or running analyses can be cancelled")
+    return public_view(store, _found(store, analysis_id), with_share=True)
+
+
+def output_file(store: Store, analysis: Analysis, name: str) -> FileResponse:
+    """A file of a finished analysis' output folder (404 for any other name)."""
+    path = store.output_dir(analysis.id) / name
+    if analysis.state != "done" or name not in OUTPUT_FILES or not path.is_file():
+        raise ApiError(404, "not_found", f"no file {name!r} for this analysis; files exist"
+                       f" once it is done: {', '.join(sorted(OUTPUT_FILES))}")
+    return FileResponse(path, media_type=_MEDIA.get(path.suffix, "application/octet-stream"))
+
+
+@router.get("/{analysis_id}/files/{name}", response_class=FileResponse)
+def download(analysis_id: str, name: str, store: StoreDep, owner: KeyDep) -> FileResponse:
+    """Download samples.csv, summary.json, report.html or a plot of a done analysis."""
+    return output_file(store, _found(store, analysis_id), name)
+
+
+@router.get("/{analysis_id}/events", response_class=StreamingResponse)
+async def events(analysis_id: str, store: StoreDep, svc: SettingsDep) -> StreamingResponse:
+    """Server-sent events {state, stage, progress} until a final state (or a time limit)."""
+    first = await anyio.to_thread.run_sync(store.get, analysis_id)
+    if first is None:
+        raise ApiError(404, "not_found", f"no analysis {analysis_id!r}; check the id")
+
+    async def stream() -> AsyncIterator[str]:
+        deadline = time.monotonic() + svc.events_timeout_seconds
+        last, quiet = None, time.monotonic()
+        yield "retry: 2000\n\n"
+        while True:
+            row = await anyio.to_thread.run_sync(store.get, analysis_id)
+            if row is None:
+                return
+            now = (row.state, row.stage, round(row.progress, 3))
+            if now != last:
+                last, quiet = now, time.monotonic()
+                data = {"state": row.state, "stage": row.stage, "progress": row.progress}
+                yield f"event: progress\ndata: {json.dumps(data)}\n\n"
+            elif time.monotonic() - quiet > 15:
+                quiet = time.monotonic()
+                yield ": keep-alive\n\n"
+            if row.state in FINAL_STATES or time.monotonic() > deadline:
+                yield f"event: end\ndata: {json.dumps({'state': row.state})}\n\n"
+                return
+            await anyio.sleep(0.5)
+
+    return StreamingResponse(stream(), media_type="text/event-stream",
+                             headers={"Cache-Control": "no-store", "X-Accel-Buffering": "no"})
+
+
+@router.post("/{analysis_id}/share", response_model=ShareLink)
+def new_share(analysis_id: str, store: StoreDep, owner: KeyDep) -> ShareLink:
+    """Make a new share link (the previous one stops working)."""
+    analysis = _found(store, analysis_id)
+    generation = analysis.share_generation + 1
+    token = store.share_token(analysis_id, generation)
+    store.set_share(analysis_id, hash_secret(token), generation)
+    return ShareLink(id=analysis_id, share_token=token, report_url=f"/r/{token}")
+
+
+@router.post("/{analysis_id}/share/revoke", status_code=204, response_class=Response)
+def revoke_share(analysis_id: str, store: StoreDep, owner: KeyDep) -> Response:
+    """Revoke the share link: /r/<token> then answers 404."""
+    analysis = _found(store, analysis_id)
+    store.set_share(analysis_id, None, analysis.share_generation + 1)
+    return Response(status_code=204)

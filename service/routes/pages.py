@@ -1,0 +1,151 @@
+"""Browser pages of the service: the upload form and the live status page.
+
+Routes
+------
+``GET /``
+    The upload page (``templates/upload.html``). Its script posts the form as multipart
+    to ``POST /api/v1/analyses`` and opens the returned ``report_url``.
+
+The status page (``templates/status.html``) has no route here: the share-link route
+``GET /r/{token}`` shows it, via :func:`render_status`, while the analysis is not done.
+
+Template contexts (the templates compute nothing; everything is prepared here)
+------------------------------------------------------------------------------
+upload.html
+    ``submit_url`` (str), ``f_low_default`` (str, Hz, formatted).
+status.html
+    ``analysis_id``, ``label``, ``state``, ``stage`` (str), ``progress`` (float, 0..1),
+    ``events_url``, ``status_url``, ``upload_url`` (str); optional ``error_message`` and
+    ``error_field`` (str or None), ``stage_label`` and ``error_field_label`` (display text),
+    ``stage_labels`` and ``field_labels`` (name -> display text, for the page's script).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections.abc import Mapping
+from functools import lru_cache
+from typing import Any
+
+import jinja2
+from fastapi import APIRouter
+from fastapi.responses import HTMLResponse
+
+from estimator.settings import AnalysisSettings
+
+from ..formatting import format_value
+from ..report import TEMPLATES_DIR
+
+__all__ = [
+    "API_PREFIX",
+    "FIELD_LABELS",
+    "FINAL_STATES",
+    "STAGE_LABELS",
+    "STATES",
+    "UPLOAD_URL",
+    "render_page",
+    "render_status",
+    "router",
+    "status_context",
+    "upload_context",
+    "upload_page",
+]
+
+#: Prefix of the JSON API the pages talk to.
+API_PREFIX = "/api/v1"
+#: Where the upload page is served.
+UPLOAD_URL = "/"
+#: The states an analysis can be in (the REST contract's ``state``).
+STATES = ("queued", "running", "done", "failed", "cancelled")
+#: The states after which nothing changes.
+FINAL_STATES = ("done", "failed", "cancelled")
+#: What the status page says for each stage the pipeline reports (and for the states).
+STAGE_LABELS: dict[str, str] = {
+    "queued": "Waiting in the queue", "running": "Running",
+    "reading": "Reading the uploaded files",
+    "search": "Searching for the signal near the trigger time",
+    "fiducial": "Fitting a reference waveform", "sampling": "Sampling the posterior",
+    "check": "Checking the fast likelihood against the exact one",
+    "report": "Making the plots and the report", "done": "Finished",
+    "failed": "Stopped: the analysis failed", "cancelled": "Stopped: cancelled",
+}
+#: How the status page names the input an error's ``field`` points at.
+FIELD_LABELS: dict[str, str] = {
+    "strain": "the strain file", "psd": "the noise spectrum file",
+    "asd": "the ASD / PSD choice", "trigger_time": "the trigger time",
+    "sample_rate": "the sample rate", "start_time": "the start time",
+    "chirp_mass_guess": "the chirp-mass guess", "f_low": "the lower frequency f_low",
+    "f_high": "the upper frequency f_high", "label": "the label", "seed": "the seed",
+}
+#: Headers of every page: never cached (the status page changes, the form is cheap).
+_PAGE_HEADERS = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"}
+
+router = APIRouter(tags=["pages"])
+
+
+@lru_cache(maxsize=1)
+def _environment() -> jinja2.Environment:
+    return jinja2.Environment(
+        loader=jinja2.FileSystemLoader(TEMPLATES_DIR), autoescape=True,
+        undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True,
+    )
+
+
+def render_page(name: str, context: Mapping[str, Any]) -> str:
+    """Render one of the service's page templates (``upload.html``, ``status.html``)."""
+    return _environment().get_template(name).render(dict(context))
+
+
+def _default_f_low() -> float:
+    for item in dataclasses.fields(AnalysisSettings):
+        if item.name == "f_low":
+            return float(item.default)  # type: ignore[arg-type]
+    msg = "AnalysisSettings has no field 'f_low'; the upload page needs its default"
+    raise RuntimeError(msg)
+
+
+def upload_context() -> dict[str, str]:
+    """The context of ``upload.html``: the submit URL and the default f_low."""
+    return {"submit_url": f"{API_PREFIX}/analyses", "f_low_default": format_value(_default_f_low())}
+
+
+def status_context(
+    analysis_id: str, *, state: str, stage: str | None = None, progress: float = 0.0,
+    label: str | None = None, error_message: str | None = None, error_field: str | None = None,
+) -> dict[str, Any]:
+    """The context of ``status.html`` for one analysis, with the URLs of the REST contract.
+
+    ``progress`` is clipped to [0, 1] (a non-finite value counts as 0).
+    """
+    if state not in STATES:
+        msg = f"state {state!r} is not one of {', '.join(STATES)}; pass the analysis's state"
+        raise ValueError(msg)
+    fraction = float(progress)
+    fraction = min(max(fraction, 0.0), 1.0) if math.isfinite(fraction) else 0.0
+    base = f"{API_PREFIX}/analyses/{analysis_id}"
+    shown = state if state == "queued" or state in FINAL_STATES else (stage or state)
+    return {
+        "analysis_id": analysis_id, "label": label or "", "state": state, "stage": stage or "",
+        "progress": round(fraction, 4), "events_url": f"{base}/events", "status_url": base,
+        "upload_url": UPLOAD_URL, "error_message": error_message, "error_field": error_field,
+        "stage_label": STAGE_LABELS.get(shown, shown),
+        "error_field_label": FIELD_LABELS.get(error_field, error_field) if error_field else None,
+        "stage_labels": STAGE_LABELS, "field_labels": FIELD_LABELS,
+    }
+
+
+def render_status(
+    analysis_id: str, *, state: str, stage: str | None = None, progress: float = 0.0,
+    label: str | None = None, error_message: str | None = None, error_field: str | None = None,
+) -> str:
+    """Render the live status page of one analysis (see :func:`status_context`)."""
+    return render_page("status.html", status_context(
+        analysis_id, state=state, stage=stage, progress=progress, label=label,
+        error_message=error_message, error_field=error_field))
+
+
+@router.get("/", response_class=HTMLResponse, summary="Upload page")
+def upload_page() -> HTMLResponse:
+    """The upload form: strain, optional noise spectrum and the candidate's settings."""
+    return HTMLResponse(render_page("upload.html", upload_context()), headers=_PAGE_HEADERS)

@@ -1,0 +1,257 @@
+"""Worker processes: claim queued analyses and run them, away from the web event loop.
+
+A worker claims one analysis at a time (:func:`service.jobs.claim`), runs
+:func:`service.pipeline.analyze_files` into ``analyses/<id>/attempt-<n>/``,
+sends a heartbeat every ``heartbeat_seconds`` from a helper thread, writes stage
+and progress at most every 0.5 s, and stops early when the analysis is cancelled
+or its claim is lost. On SIGTERM it puts its analysis back in the queue at the next progress report.
+"""
+
+from __future__ import annotations
+
+import ctypes
+import logging
+import multiprocessing as mp
+import os
+import shutil
+import signal
+import socket
+import threading
+import time
+import uuid
+from multiprocessing.context import SpawnProcess
+from multiprocessing.synchronize import Event
+from typing import Any
+
+from estimator.errors import ConvergenceError, InputError
+from estimator.settings import AnalysisSettings
+
+from . import jobs
+from .settings import ServiceSettings
+from .storage import Store
+
+__all__ = ["WorkerPool", "build_request", "run_one_job", "worker_main"]
+
+log = logging.getLogger(__name__)
+
+PROGRESS_INTERVAL = 0.5
+
+
+#: Set by SIGTERM: the running analysis is given back at its next progress report.
+_TERMINATE = threading.Event()
+
+
+class _Stop(Exception):
+    """The analysis was cancelled or its claim lost: stop without touching its state."""
+
+
+def build_request(store: Store, analysis_id: str, request: dict[str, Any]) -> Any:
+    """The pipeline's ``AnalysisRequest`` for a stored submission."""
+    from .pipeline import AnalysisRequest
+
+    folder = store.analysis_dir(analysis_id)
+    options = dict(request["settings"])
+    return AnalysisRequest(
+        strain_path=folder / request["strain"],
+        psd_path=folder / request["psd"] if request.get("psd") else None,
+        asd=bool(request.get("asd", False)),
+        sample_rate=request.get("sample_rate"),
+        start_time=request.get("start_time"),
+        label=str(request.get("label") or ""),
+        settings=AnalysisSettings(**options),
+    )
+
+
+class _Reporter:
+    """Progress callback plus heartbeat thread for one claimed analysis."""
+
+    def __init__(self, store: Store, job: jobs.Claim, interval: float) -> None:
+        self.store, self.job, self.interval = store, job, interval
+        self.lost = threading.Event()
+        self._done = threading.Event()
+        self._stage = ""
+        self._last = 0.0
+        self._thread = threading.Thread(target=self._beat, daemon=True)
+
+    def __enter__(self) -> _Reporter:
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self._done.set()
+        self._thread.join(timeout=5)
+
+    def _beat(self) -> None:
+        while not self._done.wait(self.interval):
+            try:
+                if not jobs.heartbeat(self.store, self.job):
+                    self.lost.set()
+            except Exception:  # a locked database must not kill the heartbeat
+                log.exception("heartbeat of %s failed", self.job.id)
+
+    def __call__(self, stage: str, fraction: float, total: float) -> None:
+        if _TERMINATE.is_set():
+            raise SystemExit(0)
+        if self.lost.is_set():
+            raise _Stop
+        now = time.monotonic()
+        if stage != self._stage or now - self._last >= PROGRESS_INTERVAL:
+            self._stage, self._last = stage, now
+            if not jobs.heartbeat(self.store, self.job, stage=stage, progress=min(total, 0.99)):
+                self.lost.set()
+                raise _Stop
+
+
+def _run(store: Store, job: jobs.Claim, settings: ServiceSettings) -> None:
+    from .pipeline import analyze_files
+
+    folder = store.analysis_dir(job.id)
+    attempt_dir = folder / f"attempt-{job.attempt}"
+    for left in [*folder.glob("attempt-*"), *folder.glob(".attempt-*")]:  # of dead workers
+        shutil.rmtree(left, ignore_errors=True)
+    try:
+        request = build_request(store, job.id, job.analysis.request)
+        with _Reporter(store, job, settings.heartbeat_seconds) as reporter:
+            analyze_files(request, attempt_dir, progress=reporter)
+            if reporter.lost.is_set():
+                raise _Stop
+        if not jobs.finish(store, job, attempt_dir):
+            log.info("analysis %s finished after it was cancelled or taken up again", job.id)
+    except _Stop:
+        log.info("analysis %s stopped (cancelled or claim lost)", job.id)
+    except InputError as err:
+        jobs.fail(store, job, str(err), err.field)
+    except ConvergenceError as err:
+        jobs.fail(store, job, str(err), None)
+    except (SystemExit, KeyboardInterrupt):
+        jobs.release(store, job)
+        raise
+    except Exception:
+        error_id = uuid.uuid4().hex[:12]
+        log.exception("analysis %s: internal error %s", job.id, error_id)
+        jobs.fail(
+            store,
+            job,
+            f"internal error {error_id} while analysing; the operator can find it in the"
+            " server log under that id",
+            None,
+        )
+    finally:
+        shutil.rmtree(attempt_dir, ignore_errors=True)
+
+
+def run_one_job(settings: ServiceSettings, *, worker: str | None = None) -> str | None:
+    """Claim one queued analysis and run it here, to its end; return its id (``None``: idle)."""
+    store = Store(settings.data_dir)
+    job = jobs.claim(store, worker or f"{socket.gethostname()}:{os.getpid()}")
+    if job is None:
+        return None
+    _run(store, job, settings)
+    return job.id
+
+
+def _die_with_parent() -> None:
+    """Ask Linux to SIGKILL this process when its parent dies (no orphans after a kill -9)."""
+    try:
+        libc = ctypes.CDLL("libc.so.6", use_errno=True)
+        libc.prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        log.debug("no prctl: orphan detection by parent pid only")
+
+
+def _forked_helper() -> None:
+    """In a process forked by a worker: die with the worker, default SIGTERM."""
+    _die_with_parent()
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+
+
+def _on_sigterm(signum: int, frame: object) -> None:
+    _TERMINATE.set()
+
+
+def worker_main(settings_data: dict[str, Any], stop: Event, parent: int) -> None:
+    """Entry point of a worker process: run analyses until ``stop`` is set."""
+    _die_with_parent()
+    os.register_at_fork(after_in_child=_forked_helper)  # the pipeline's plot helper
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the serving process coordinates shutdown
+    signal.signal(signal.SIGTERM, _on_sigterm)
+    logging.basicConfig(level=logging.INFO, format="chirpcast worker: %(levelname)s: %(message)s")
+    logging.getLogger("matplotlib").setLevel(logging.WARNING)
+    settings = ServiceSettings(**settings_data)
+    store = Store(settings.data_dir)
+    name = f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
+    last_sweep = 0.0
+    try:
+        while not stop.is_set() and not _TERMINATE.is_set() and os.getppid() == parent:
+            if time.monotonic() - last_sweep > settings.heartbeat_seconds:
+                last_sweep = time.monotonic()
+                jobs.requeue_stale(
+                    store,
+                    stale_after=settings.stale_after_seconds,
+                    max_attempts=settings.max_attempts,
+                )
+            if run_one_job(settings, worker=name) is None:
+                stop.wait(0.5)
+    except SystemExit:
+        pass
+    finally:
+        # the pipeline's plot helper waits for work forever; multiprocessing would join it
+        for child in mp.active_children():
+            child.terminate()
+            child.join(5)
+            if child.is_alive():
+                child.kill()
+                child.join(5)
+
+
+class WorkerPool:
+    """N worker processes (spawned), restarted when one dies, stopped on :meth:`stop`."""
+
+    def __init__(self, settings: ServiceSettings, count: int) -> None:
+        self.settings, self.count = settings, count
+        self._ctx = mp.get_context("spawn")
+        self._stop = self._ctx.Event()
+        self._procs: list[SpawnProcess] = []
+        self._closing = threading.Event()
+        self._watch = threading.Thread(target=self._supervise, daemon=True)
+
+    def _spawn(self) -> SpawnProcess:
+        proc = self._ctx.Process(
+            target=worker_main,
+            args=(self.settings.model_dump(mode="json"), self._stop, os.getpid()),
+            name="chirpcast-worker",
+        )
+        proc.start()
+        return proc
+
+    def start(self) -> None:
+        """Start the workers and the thread that replaces any that die."""
+        self._procs = [self._spawn() for _ in range(self.count)]
+        self._watch.start()
+
+    def _supervise(self) -> None:
+        while not self._closing.wait(1.0):
+            for i, proc in enumerate(self._procs):
+                if not proc.is_alive() and not self._closing.is_set():
+                    log.warning("worker %s exited (%s); starting another", proc.pid, proc.exitcode)
+                    self._procs[i] = self._spawn()
+
+    def stop(self, timeout: float = 20.0) -> None:
+        """Ask every worker to put its analysis back and exit; kill those that do not."""
+        self._closing.set()
+        self._stop.set()
+        for proc in self._procs:
+            if proc.is_alive() and proc.pid is not None:
+                os.kill(proc.pid, signal.SIGTERM)
+        deadline = time.monotonic() + timeout
+        for proc in self._procs:
+            proc.join(max(0.1, deadline - time.monotonic()))
+            if proc.is_alive():
+                proc.kill()
+                proc.join(5)
+
+    @property
+    def pids(self) -> list[int]:
+        """Process ids of the running workers."""
+        return [p.pid for p in self._procs if p.pid is not None]
+
