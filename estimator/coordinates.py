@@ -53,11 +53,16 @@ class ArrivalTime:
     names: tuple[str, ...] = SAMPLER_NAMES
 
     def lag(self, chirp_mass: Array, mass_ratio: Array) -> Array:
-        """``t_c - t(f_ref)``, s, shape ``(n,)``."""
-        return np.asarray(
-            time_to_coalescence(self.f_ref, np.asarray(chirp_mass), np.asarray(mass_ratio)),
-            dtype=float,
-        ).reshape(np.shape(chirp_mass))
+        """``t_c - t(f_ref)``, s, shape ``(n,)``.
+
+        Proposals outside the physical range (``q <= 0``, ``Mc <= 0``) get a finite
+        placeholder here; the prior rejects them.
+        """
+        mc = np.asarray(chirp_mass, dtype=float)
+        q = np.asarray(mass_ratio, dtype=float)
+        ok = (mc > 0.0) & (q > 0.0) & (q <= 1.0)
+        lag = time_to_coalescence(self.f_ref, np.where(ok, mc, 1.0), np.where(ok, q, 1.0))
+        return np.asarray(np.where(ok, lag.reshape(mc.shape), 0.0), dtype=float)
 
     def to_physical(self, u: Mapping[str, Array]) -> dict[str, Array]:
         """Sampler coordinates -> ``chirp_mass, mass_ratio, effective_distance,

@@ -152,7 +152,9 @@ class RelativeBinningLikelihood:
             shift = tc0 + self.reference_time - data.epoch
             # The fiducial shape without amplitude constants or an ISCO cut:
             # h0 = f^{-7/6} exp(-i psi0); ratios carry the amplitude.
-            psi0 = taylorf2_phase(f, mc0, q0) + 2.0 * np.pi * shift * f
+            # The same phase convention as the exact likelihood (with its -pi/4), so that
+            # the binned overlap z has the exact one's phase as well as its modulus.
+            psi0 = taylorf2_phase(f, mc0, q0) + 2.0 * np.pi * shift * f - np.pi / 4.0
             weight = 4.0 * data.df / data.psd
             # d h0* / S with h0 = f^{-7/6} exp(-i psi0), no ISCO cut.
             integrand = data.strain * (f ** (-7.0 / 6.0) * weight) * np.exp(1j * psi0)

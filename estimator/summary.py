@@ -22,6 +22,7 @@ from . import __version__
 from .analysis import AnalysisResult, settings_dict
 from .cosmology import redshift_from_distance
 from .priors import draw_orientation
+from .quality import assess_quality
 from .stats import credible_interval, probability_below
 from .waveform import component_masses
 
@@ -200,6 +201,7 @@ def build_summary(
             "cosmology": "flat Lambda-CDM, H0 = 67.66 km/s/Mpc, Omega_m = 0.30966 (Planck 2018)",
             "detectors": [result.data.detector],
         },
+        "quality": assess_quality(result).to_dict(),
         "notes": list(result.notes),
         "software": {"name": "chirpcast", "version": __version__},
     }

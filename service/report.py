@@ -27,6 +27,7 @@ from .formatting import (
 
 __all__ = [
     "PLOT_ORDER",
+    "QUALITY_TITLES",
     "TEMPLATES_DIR",
     "build_context",
     "format_interval",
@@ -60,6 +61,15 @@ GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("Signal strength", "", ("snr",)),
 )
 UNITS: Mapping[str, str] = {"Msun": "M☉", "": "—"}
+#: Heading of each data-quality check of summary.json's "quality".
+QUALITY_TITLES: Mapping[str, str] = {
+    "residual_variance": "Noise level matches the spectrum",
+    "residual_normality": "Residual noise is Gaussian",
+    "transient": "No glitch near the signal",
+    "segment_edges": "Signal inside the segment",
+    "band_edge": "Signal inside the frequency band",
+    "likelihood_check": "Fast likelihood agrees with exact",
+}
 #: Plot keys in report order; their titles and captions live in templates/figures.html.
 PLOT_ORDER = ("corner", "whitened", "time_frequency", "spectrum", "traces")
 _SAFE_SCHEMES = ("http", "https", "data", "file")
@@ -148,6 +158,22 @@ def _diagnostics(diag: Mapping[str, Any]) -> dict[str, Any]:
     }
 
 
+def _quality(raw: Mapping[str, Any] | None) -> list[dict[str, Any]] | None:
+    if not raw:
+        return None
+    rows = []
+    for check in raw.get("checks", []):
+        name, value = str(check.get("name", "")), check.get("value")
+        rows.append({
+            "name": name, "title": QUALITY_TITLES.get(name, name.replace("_", " ")),
+            "passed": bool(check.get("passed", False)),
+            "value": "n/a" if value is None else format_significant(float(value), 3),
+            "threshold": str(check.get("threshold", "")),
+            "explanation": str(check.get("explanation", "")),
+        })
+    return rows
+
+
 def _inputs(inputs: Mapping[str, Any]) -> dict[str, Any]:
     strain, psd = inputs.get("strain"), inputs.get("psd")
     return {
@@ -197,6 +223,8 @@ def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
     if diag["check"] is not None and not diag["check"].get("passed", True):
         alerts.append("The fast likelihood disagreed with the exact likelihood beyond "
                       "tolerance; the posterior may be distorted.")
+    quality = _quality(summary.get("quality"))
+    quality_flags = [q for q in quality or [] if not q["passed"]]
     if share_url is not None and not share_url.lower().startswith(("http://", "https://")):
         msg = f"share_url {share_url[:40]!r} must be an absolute http(s) URL"
         raise ValueError(msg)
@@ -208,6 +236,7 @@ def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
         "credible": f"{100.0 * float(summary.get('credible_level', 0.9)):g}%",
         "headline": _headline(parameters, summary.get("probabilities", {})),
         "groups": groups, "alerts": alerts, "plots": plots, "diagnostics": diag,
+        "quality": quality, "quality_flags": quality_flags,
         "maximum_likelihood": _maximum_likelihood(summary.get("maximum_likelihood"), groups),
         "notes": [str(n) for n in summary.get("notes", [])],
         "downloads": None if not downloads else [
