@@ -21,6 +21,7 @@ from .coordinates import ArrivalTime
 from .data import NoiseSpectrum, StrainSegment
 from .errors import InputError
 from .fiducial import Fiducial, find_fiducial
+from .fisher import FisherEstimate, fisher_estimate
 from .likelihood import ExactLikelihood
 from .posterior import LikelihoodCheck, sample_posterior
 from .priors import InspiralPrior
@@ -60,6 +61,7 @@ class AnalysisResult:
     data: DetectorData
     search: SearchResult
     fiducial: Fiducial
+    fisher: FisherEstimate  # at the fiducial; the instant preview of the widths
     chain: ChainResult  # in the sampler's coordinates, see ``coordinates``
     coordinates: ArrivalTime
     likelihood: RelativeBinningLikelihood
@@ -96,8 +98,12 @@ def run_analysis(
     settings: AnalysisSettings,
     *,
     progress: Progress | None = None,
+    preview: Callable[[FisherEstimate], None] | None = None,
 ) -> AnalysisResult:
     """Run the whole analysis of one detector's segment.
+
+    ``preview`` is called with the Fisher-matrix estimate of the widths as soon
+    as the fiducial is found, before sampling starts (an instant first look).
 
     Raises
     ------
@@ -200,12 +206,16 @@ def run_analysis(
         progress=_report(progress, "fiducial"),
         exact=exact,
     )
+    fisher = fisher_estimate(datasets, fiducial.params)
     timings["fiducial"] = time.perf_counter() - clock
+    if preview is not None:
+        preview(fisher)
 
     run = sample_posterior(
         datasets,
         reference,
         fiducial.params,
+        fisher=fisher,
         prior=prior,
         exact=exact,
         settings=settings,
@@ -227,6 +237,7 @@ def run_analysis(
         data=data,
         search=found,
         fiducial=fiducial,
+        fisher=fisher,
         chain=chain,
         coordinates=coords,
         likelihood=binned,

@@ -1,6 +1,6 @@
 """Sampling the posterior with the relative-binning likelihood, and checking it.
 
-The walkers start from the curvature (numerical Fisher) Gaussian at the fiducial;
+The walkers start from the Fisher-matrix Gaussian at the fiducial;
 before sampling, the binned likelihood is compared with the exact one on points
 as wide as the posterior's tails and its bins doubled if needed; after
 sampling, it is compared again on posterior draws, and when the two differ by
@@ -14,7 +14,6 @@ from __future__ import annotations
 import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
-from functools import partial
 
 import numpy as np
 from numpy.typing import NDArray
@@ -22,7 +21,7 @@ from numpy.typing import NDArray
 from .conditioning import DetectorData
 from .coordinates import ArrivalTime, reference_frequency
 from .errors import InputError
-from .fiducial import _scales, curvature_covariance
+from .fisher import FisherEstimate, mass_ratio_of_eta
 from .likelihood import ExactLikelihood
 from .priors import InspiralPrior
 from .relbin import RelativeBinningLikelihood
@@ -59,37 +58,41 @@ class PosteriorRun:
     check_time: float
 
 
-def _physical_likelihood(
-    like: RelativeBinningLikelihood, coords: ArrivalTime, u: Mapping[str, Array]
-) -> Array:
-    """Log-likelihood of sampler coordinates ``u``."""
-    return like.log_likelihood(coords.to_physical(u))
-
-
 def _start_walkers(
     rng: np.random.Generator,
     log_prior: Callable[[Mapping[str, Array]], Array],
-    log_like: Callable[[Mapping[str, Array]], Array],
-    center: dict[str, float],
-    scales: dict[str, float],
+    coords: ArrivalTime,
+    fisher: FisherEstimate,
     walkers: int,
-    names: tuple[str, ...],
+    limits: Mapping[str, float],
 ) -> Array:
-    """Walkers drawn from the curvature Gaussian at the fiducial, kept inside the prior."""
-    steps = dict(scales)
-    cov = np.diag([steps[k] ** 2 for k in names])
-    for _ in range(3):
-        # Steps of about one standard deviation give the curvature best; the mass
-        # ratio, often barely measured, keeps its step inside its unit-wide range.
-        cov = curvature_covariance(log_like, center, steps, names)
-        steps = {k: float(np.sqrt(cov[i, i])) for i, k in enumerate(names)}
-        steps["mass_ratio"] = min(steps["mass_ratio"], 0.1)
-    mean = np.array([center[k] for k in names])
-    out = np.empty((0, len(names)))
+    """Walkers drawn from the Fisher Gaussian at the fiducial, kept inside the prior.
+
+    Draws of the symmetric mass ratio above 1/4 are reflected back below it
+    (the Gaussian knows nothing of the equal-mass edge); widths wider than
+    ``limits`` (a barely measured mass ratio, say) are narrowed to them with
+    the correlations kept.
+    """
+    mean = np.array([fisher.center[k] for k in fisher.names])
+    sigma = np.sqrt(np.diag(fisher.covariance))
+    shrink = np.minimum(1.0, np.array([limits[k] for k in fisher.names]) / sigma)
+    cov = fisher.covariance * np.outer(shrink, shrink)
+    out = np.empty((0, len(coords.names)))
     for _ in range(100):
         draws = rng.multivariate_normal(mean, cov, size=4 * walkers)
-        lp = log_prior({k: draws[:, i] for i, k in enumerate(names)})
-        out = np.vstack([out, draws[np.isfinite(lp)]])
+        eta = 0.25 - np.abs(0.25 - draws[:, 1])
+        good = eta > 0.0
+        physical = {
+            "chirp_mass": draws[good, 0],
+            "mass_ratio": mass_ratio_of_eta(eta[good]),
+            "coalescence_time": draws[good, 2],
+            "effective_distance": draws[good, 3],
+        }
+        with np.errstate(invalid="ignore", divide="ignore"):
+            u = coords.from_physical(physical)
+            lp = log_prior(u)
+        inside = np.column_stack([u[k] for k in coords.names])[np.isfinite(lp)]
+        out = np.vstack([out, inside])
         if out.shape[0] >= walkers:
             return out[:walkers]
         cov = cov * 0.25
@@ -102,6 +105,7 @@ def sample_posterior(
     reference: float,
     fiducial: Mapping[str, float],
     *,
+    fisher: FisherEstimate,
     prior: InspiralPrior,
     exact: ExactLikelihood,
     settings: AnalysisSettings,
@@ -125,13 +129,6 @@ def sample_posterior(
         binned = RelativeBinningLikelihood(datasets, reference, center, n_bins=n_bins)
 
         if start is None:
-            base = _scales(center["chirp_mass"], settings.f_low)
-            scales = {
-                "chirp_mass": base[0],
-                "mass_ratio": base[1],
-                "effective_distance": base[2] * center["effective_distance"],
-                "arrival_time": base[3],
-            }
             center_u = {
                 k: float(v[0])
                 for k, v in coords.from_physical(
@@ -141,11 +138,15 @@ def sample_posterior(
             start = _start_walkers(
                 rng,
                 lambda u: prior.log_prob(coords.to_physical(u)),
-                partial(_physical_likelihood, binned, coords),
-                center_u,
-                scales,
+                coords,
+                fisher,
                 settings.walkers,
-                names,
+                {
+                    "chirp_mass": 0.1 * center["chirp_mass"],
+                    "symmetric_mass_ratio": 0.1,
+                    "coalescence_time": settings.time_window,
+                    "effective_distance": 0.5 * center["effective_distance"],
+                },
             )
             # A first look before sampling: points spread twice as widely as the starting
             # walkers (about as widely as the posterior's tails) must already meet the

@@ -36,6 +36,7 @@ __all__ = [
     "component_masses",
     "isco_frequency",
     "phase_coefficients",
+    "phase_of_eta",
     "symmetric_mass_ratio",
     "taylorf2",
     "taylorf2_phase",
@@ -178,7 +179,18 @@ class PhaseBasis:
 def _single_phase(f: Array, chirp_mass: float, mass_ratio: float, orders: tuple[int, ...]
                   ) -> Array:
     """The PN phase of one parameter set, evaluated directly (Horner's rule in ``v``)."""
-    eta = float(symmetric_mass_ratio(mass_ratio))
+    return phase_of_eta(f, chirp_mass, float(symmetric_mass_ratio(mass_ratio)), orders)
+
+
+def phase_of_eta(
+    f: Array, chirp_mass: float, eta: float, orders: tuple[int, ...] = PN_ORDERS
+) -> Array:
+    """The PN phase of :func:`taylorf2_phase` for one chirp mass and symmetric mass ratio.
+
+    Written in ``eta`` rather than ``q``, so that it is smooth through the
+    equal-mass point ``eta = 1/4`` (the series' coefficients are polynomials in
+    ``eta``), as derivatives there need.
+    """
     total = chirp_mass * eta ** (-0.6) * MSUN_SECONDS
     v = np.cbrt(np.pi * total * f)
     log_v = np.log(v)
