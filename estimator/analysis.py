@@ -228,7 +228,7 @@ def run_analysis(
     chain, coords, binned, check = run.chain, run.coordinates, run.likelihood, run.check
     timings["sampling"] = run.sampling_time
     timings["likelihood_check"] = run.check_time
-    samples = coords.to_physical(chain.samples())
+    samples = run.samples
     return AnalysisResult(
         settings=settings,
         seed=seed,
@@ -242,7 +242,7 @@ def run_analysis(
         coordinates=coords,
         likelihood=binned,
         samples=samples,
-        sample_log_likelihood=binned.log_likelihood(samples),
+        sample_log_likelihood=run.sample_log_likelihood,
         check=check,
         timings=timings,
         notes=notes,

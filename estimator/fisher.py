@@ -18,6 +18,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -29,6 +30,7 @@ from .waveform import isco_frequency, phase_of_eta, symmetric_mass_ratio
 __all__ = [
     "DERIVATIVE_PARAMETERS",
     "FISHER_PARAMETERS",
+    "FISHER_UNITS",
     "FisherEstimate",
     "fisher_estimate",
     "fisher_matrix",
@@ -44,6 +46,14 @@ FISHER_PARAMETERS = (
     "coalescence_time",
     "effective_distance",
 )
+
+#: Their units (the coalescence time is relative to the reference time).
+FISHER_UNITS = {
+    "chirp_mass": "Msun",
+    "symmetric_mass_ratio": "",
+    "coalescence_time": "s",
+    "effective_distance": "Mpc",
+}
 
 _LOG_STEP = 1e-6  # central-difference step in ln Mc
 _ETA_STEP = 1e-6  # and in eta
@@ -74,6 +84,44 @@ class FisherEstimate:
     def sigma(self) -> dict[str, float]:
         """1-sigma widths by name."""
         return {k: float(np.sqrt(self.covariance[i, i])) for i, k in enumerate(self.names)}
+
+    def to_dict(self, samples: Mapping[str, Array] | None = None) -> dict[str, Any]:
+        """The preview as JSON-ready data; with posterior ``samples``, their widths beside it.
+
+        ``samples`` holds ``chirp_mass``, ``mass_ratio``, ``coalescence_time`` and
+        ``effective_distance`` arrays; each entry then gains ``posterior_sd``
+        and ``ratio`` (posterior over Fisher).
+        """
+        widths = self.sigma
+        posterior: dict[str, Array] = {}
+        if samples is not None:
+            posterior = {
+                "chirp_mass": np.asarray(samples["chirp_mass"]),
+                "symmetric_mass_ratio": symmetric_mass_ratio(samples["mass_ratio"]),
+                "coalescence_time": np.asarray(samples["coalescence_time"]),
+                "effective_distance": np.asarray(samples["effective_distance"]),
+            }
+        parameters: dict[str, dict[str, Any]] = {}
+        for name in self.names:
+            entry: dict[str, Any] = {
+                "value": self.center[name],
+                "sigma": widths[name],
+                "unit": FISHER_UNITS[name],
+            }
+            if name in posterior:
+                sd = float(np.std(posterior[name]))
+                entry["posterior_sd"] = sd
+                entry["ratio"] = sd / widths[name] if widths[name] > 0 else None
+            parameters[name] = entry
+        return {
+            "method": "Fisher matrix of the model at the maximum-likelihood point, "
+            "coalescence phase marginalised (Cutler & Flanagan 1994)",
+            "snr": self.snr,
+            "parameters": parameters,
+            "correlation_chirp_mass_symmetric_mass_ratio": self.correlation(
+                "chirp_mass", "symmetric_mass_ratio"
+            ),
+        }
 
     def correlation(self, a: str, b: str) -> float:
         """Correlation coefficient of two of the parameters."""

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from numpy.typing import NDArray
@@ -43,6 +43,10 @@ class LikelihoodCheck:
     passed: bool
     bins: int
     refinements: int
+    #: The samples were importance-reweighted with the exact likelihood (check failed).
+    reweighted: bool = False
+    #: Effective share of samples the reweighting kept, ``(sum w)^2 / (n sum w^2)``.
+    reweight_efficiency: float | None = None
 
 
 @dataclass
@@ -53,6 +57,8 @@ class PosteriorRun:
     coordinates: ArrivalTime
     likelihood: RelativeBinningLikelihood  # the one the final chain used
     check: LikelihoodCheck
+    samples: dict[str, Array]  # physical, one row per posterior sample
+    sample_log_likelihood: Array  # of the likelihood the samples follow
     notes: list[str]
     sampling_time: float
     check_time: float
@@ -98,6 +104,33 @@ def _start_walkers(
         cov = cov * 0.25
     msg = "could not place the sampler's walkers inside the prior around the fiducial"
     raise InputError(msg, field="prior")
+
+
+def _reweight_exactly(
+    samples: dict[str, Array],
+    binned_log_like: Array,
+    exact: ExactLikelihood,
+    check: LikelihoodCheck,
+    rng: np.random.Generator,
+) -> tuple[dict[str, Array], Array, LikelihoodCheck]:
+    """Importance-resample binned-likelihood samples to the exact likelihood.
+
+    Weights ``w = exp(ln L_exact - ln L_binned)``; the samples are redrawn with
+    replacement in proportion to them (sampling-importance resampling, Rubin
+    1988, *Bayesian Statistics 3*, 395). The efficiency
+    ``(sum w)^2 / (n sum w^2)`` says how many distinct samples survive.
+    """
+    exact_log_like = exact.log_likelihood(samples)
+    log_w = exact_log_like - binned_log_like
+    w = np.exp(log_w - np.max(log_w))
+    efficiency = float(w.sum() ** 2 / (w.size * np.sum(w**2)))
+    pick = rng.choice(w.size, size=w.size, replace=True, p=w / w.sum())
+    resampled = {k: v[pick] for k, v in samples.items()}
+    return (
+        resampled,
+        exact_log_like[pick],
+        replace(check, reweighted=True, reweight_efficiency=efficiency),
+    )
 
 
 def sample_posterior(
@@ -213,10 +246,16 @@ def sample_posterior(
     if chain is None or check is None:  # pragma: no cover - the loop runs at least once
         msg = "sampling did not run"
         raise RuntimeError(msg)
+    samples = coords.to_physical(chain.samples())
+    log_like = binned.log_likelihood(samples)
     if not check.passed:
+        clock = time.perf_counter()
+        samples, log_like, check = _reweight_exactly(samples, log_like, exact, check, rng)
+        check_time += time.perf_counter() - clock
         notes.append(
-            "relative-binning likelihood still differs from the exact one after "
-            "refinement; treat the intervals with extra caution"
+            "relative-binning likelihood still differed from the exact one after "
+            "refinement: the samples were reweighted with the exact likelihood "
+            f"(efficiency {check.reweight_efficiency:.2f}); treat the intervals with caution"
         )
     if not chain.converged:
         notes.append(
@@ -228,6 +267,8 @@ def sample_posterior(
         coordinates=coords,
         likelihood=binned,
         check=check,
+        samples=samples,
+        sample_log_likelihood=log_like,
         notes=notes,
         sampling_time=sampling_time,
         check_time=check_time,

@@ -318,9 +318,16 @@ def _likelihood_check(result: AnalysisResult) -> QualityCheck:
         words = (
             f"The fast (relative-binning) likelihood differed from the exact one by up to "
             f"{c.max_abs_difference:.2g} in log-likelihood on posterior draws, beyond the "
-            f"tolerance {c.tolerance:g}, after {c.refinements} refinement(s): the posterior "
-            "may be distorted."
+            f"tolerance {c.tolerance:g}, after {c.refinements} refinement(s)."
         )
+        if c.reweighted:
+            words += (
+                " The exact likelihood was then used: the samples were reweighted to it "
+                f"(efficiency {c.reweight_efficiency:.2f}; below about 0.1 few distinct "
+                "samples remain and the intervals are coarse)."
+            )
+        else:
+            words += " The posterior may be distorted."
     rule = f"max |Δ ln L| <= {c.tolerance:g}"
     return QualityCheck("likelihood_check", c.passed, float(c.max_abs_difference), rule, words)
 

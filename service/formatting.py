@@ -2,7 +2,8 @@
 
 Intervals are quoted the way measurements usually are (common practice): the
 uncertainty to two significant figures and the median to the same decimal place,
-e.g. ``1.19754 +0.00012 −0.00011``. Negative numbers use the typographic minus
+e.g. ``1.19754 +0.00012 −0.00011``, and a value with a 1-sigma width likewise,
+``24.19 ± 0.76``. Negative numbers use the typographic minus
 sign U+2212, not the hyphen.
 """
 
@@ -18,6 +19,7 @@ __all__ = [
     "format_interval",
     "format_percent",
     "format_significant",
+    "format_uncertain",
     "format_value",
 ]
 
@@ -87,6 +89,26 @@ def format_interval(
         "plus": "+" + f"{abs(plus):.{decimals}f}", "lower": format_fixed(lower, decimals),
         "upper": format_fixed(upper, decimals), "decimals": decimals,
     }
+
+
+def format_uncertain(value: float | None, sigma: float | None) -> dict[str, str]:
+    """A value and its 1-sigma width, the width to two significant figures (common practice).
+
+    The value is given to the same decimal place as the width, ``24.19`` and
+    ``0.76``. Without a usable width (missing, zero or not finite) the width is
+    ``"n/a"`` and the value has 4 significant figures.
+
+    Returns
+    -------
+    ``value`` and ``sigma`` as strings.
+    """
+    if value is None or not math.isfinite(value):
+        return {"value": "n/a", "sigma": "n/a"}
+    if sigma is None or not math.isfinite(sigma) or sigma <= 0.0:
+        return {"value": format_significant(value), "sigma": "n/a"}
+    decimals = decimals_for(sigma)
+    shown = round(value, decimals) or 0.0  # no "−0" for a value that rounds to zero
+    return {"value": format_fixed(shown, decimals), "sigma": f"{sigma:.{decimals}f}"}
 
 
 def format_percent(p: float) -> str:

@@ -22,6 +22,7 @@ from .formatting import (
     format_interval,
     format_percent,
     format_significant,
+    format_uncertain,
     format_value,
 )
 
@@ -146,6 +147,8 @@ def _diagnostics(diag: Mapping[str, Any]) -> dict[str, Any]:
         **{k: format_significant(float(raw.get(k, math.nan)), 2)
            for k in ("max_abs_difference", "tolerance")},
         **{k: format_value(raw.get(k)) for k in ("draws", "bins", "refinements")},
+        "reweighted": bool(raw.get("reweighted_with_exact_likelihood", False)),
+        "efficiency": format_significant(float(raw.get("reweight_efficiency") or math.nan), 2),
     }
     timings = {str(k): float(v) for k, v in diag.get("timings_s", {}).items()}
     return {
@@ -172,6 +175,29 @@ def _quality(raw: Mapping[str, Any] | None) -> list[dict[str, Any]] | None:
             "explanation": str(check.get("explanation", "")),
         })
     return rows
+
+
+#: Row labels of the Fisher cross-check.
+FISHER_LABELS: Mapping[str, str] = {
+    "chirp_mass": "Chirp mass (detector frame)", "symmetric_mass_ratio": "Symmetric mass ratio η",
+    "coalescence_time": "Coalescence time − trigger", "effective_distance": "Effective distance",
+}
+
+
+def _fisher(raw: Mapping[str, Any] | None) -> dict[str, Any] | None:
+    if not raw or not raw.get("parameters"):
+        return None
+    rows = []
+    for name, entry in raw["parameters"].items():
+        shown = format_uncertain(entry.get("value"), entry.get("sigma"))
+        sd, ratio = entry.get("posterior_sd"), entry.get("ratio")
+        rows.append({
+            "label": FISHER_LABELS.get(name, name), "unit": str(entry.get("unit", "")),
+            "value": shown["value"], "sigma": shown["sigma"],
+            "posterior_sd": "n/a" if sd is None else format_significant(float(sd), 2),
+            "ratio": "n/a" if ratio is None else f"{float(ratio):.2f}",
+        })
+    return {"rows": rows, "snr": f"{float(raw.get('snr', math.nan)):.1f}"}
 
 
 def _inputs(inputs: Mapping[str, Any]) -> dict[str, Any]:
@@ -222,7 +248,9 @@ def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
                       "intervals as rough.")
     if diag["check"] is not None and not diag["check"].get("passed", True):
         alerts.append("The fast likelihood disagreed with the exact likelihood beyond "
-                      "tolerance; the posterior may be distorted.")
+                      "tolerance; " + ("the samples were reweighted with the exact likelihood "
+                      f"(efficiency {diag['check']['efficiency']})." if diag["check"]["reweighted"]
+                      else "the posterior may be distorted."))
     quality = _quality(summary.get("quality"))
     quality_flags = [q for q in quality or [] if not q["passed"]]
     if share_url is not None and not share_url.lower().startswith(("http://", "https://")):
@@ -237,6 +265,7 @@ def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
         "headline": _headline(parameters, summary.get("probabilities", {})),
         "groups": groups, "alerts": alerts, "plots": plots, "diagnostics": diag,
         "quality": quality, "quality_flags": quality_flags,
+        "fisher": _fisher(summary.get("fisher")),
         "maximum_likelihood": _maximum_likelihood(summary.get("maximum_likelihood"), groups),
         "notes": [str(n) for n in summary.get("notes", [])],
         "downloads": None if not downloads else [

@@ -1,0 +1,59 @@
+"""``chirpcast calibrate``: the reduced calibration run CI makes on every change.
+
+24 prior-drawn injections (observed-SNR threshold 8) through the whole
+analysis, in parallel processes. For a calibrated analysis each KS p-value is
+uniform, so ``p > 0.001`` fails by chance with probability 0.001 per
+parameter (0.5% for the four and the combined value). The coverages are held
+to the 99.9% binomial band (false alarm 0.1% per check, 0.8% for all eight):
+the 90% band drawn on the plot would fail a calibrated analysis for about
+one seed in two (eight checks at 10% each). The seed is fixed and was the
+first tried; the full run of 200 or more lives in benchmarks/.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+from pathlib import Path
+
+import pytest
+
+from estimator.calibration import summarize_levels
+from service.calibrate import TESTED
+from service.cli import main
+
+
+@pytest.mark.slow
+def test_reduced_calibration_run(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    out = tmp_path / "cal"
+    code = main(["--quiet", "calibrate", "--n", "24", "--seed", "11", "--out", str(out)])
+    printed = capsys.readouterr().out
+    assert code == 0, printed
+    doc = json.loads((out / "calibration.json").read_text())
+    with (out / "runs.csv").open(encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))
+    assert len(rows) == 24 and doc["injections"] == 24
+    assert (out / "pp_plot.png").stat().st_size > 20_000
+    assert doc["wall_time_s"] > 0 and "combined p" in printed
+
+    # The injections span the prior: low observed SNR and unequal masses among them.
+    snr = sorted(float(r["observed_snr"]) for r in rows)
+    assert snr[0] >= 8.0 and snr[len(snr) // 2] < 15.0
+    assert doc["mass_ratio_below_0.5"] >= 3
+    assert doc["not_converged"] == 0
+
+    for name in TESTED:
+        assert doc["parameters"][name]["ks_p_value"] > 1e-3, (name, doc["parameters"][name])
+    assert doc["combined_p_value"] > 1e-3
+    strict = summarize_levels(
+        {k: [float(r[f"{k}_level"]) for r in rows] for k in TESTED}, band_level=0.999
+    )
+    assert strict.inside_band() == dict.fromkeys(TESTED, True), strict.coverage
+
+
+def test_calibrate_refuses_too_few_injections(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    code = main(["calibrate", "--n", "1", "--out", str(tmp_path / "x")])
+    assert code == 2
+    assert "at least 2 injections" in capsys.readouterr().err
