@@ -14,6 +14,7 @@ from __future__ import annotations
 import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
+from functools import partial
 
 import numpy as np
 from numpy.typing import NDArray
@@ -64,9 +65,23 @@ class PosteriorRun:
     check_time: float
 
 
+def _sampler_log_likelihood(
+    like: RelativeBinningLikelihood, coords: ArrivalTime, u: Mapping[str, Array]
+) -> Array:
+    """Log-likelihood at sampler coordinates ``u``."""
+    return like.log_likelihood(coords.to_physical(u))
+
+
+#: Start points may lie at most this far below the fiducial's log-likelihood: half the
+#: 99.9% quantile of chi^2 with 4 degrees of freedom (a 4-parameter Gaussian posterior
+#: keeps 99.9% of its mass there; common practice).
+START_DEPTH = 9.23
+
+
 def _start_walkers(
     rng: np.random.Generator,
     log_prior: Callable[[Mapping[str, Array]], Array],
+    log_like: Callable[[Mapping[str, Array]], Array],
     coords: ArrivalTime,
     fisher: FisherEstimate,
     walkers: int,
@@ -77,12 +92,18 @@ def _start_walkers(
     Draws of the symmetric mass ratio above 1/4 are reflected back below it
     (the Gaussian knows nothing of the equal-mass edge); widths wider than
     ``limits`` (a barely measured mass ratio, say) are narrowed to them with
-    the correlations kept.
+    the correlations kept; draws whose log-likelihood lies more than
+    :data:`START_DEPTH` below the fiducial's are dropped (where the Fisher
+    Gaussian is wider than the posterior, as for heavy systems whose model
+    ends inside the band, they would start far out in the tails).
     """
     mean = np.array([fisher.center[k] for k in fisher.names])
     sigma = np.sqrt(np.diag(fisher.covariance))
     shrink = np.minimum(1.0, np.array([limits[k] for k in fisher.names]) / sigma)
     cov = fisher.covariance * np.outer(shrink, shrink)
+    center = {k: np.array([v]) for k, v in fisher.center.items()}
+    center["mass_ratio"] = mass_ratio_of_eta(center.pop("symmetric_mass_ratio"))
+    peak = float(log_like(coords.from_physical(center))[0])
     out = np.empty((0, len(coords.names)))
     for _ in range(100):
         draws = rng.multivariate_normal(mean, cov, size=4 * walkers)
@@ -97,7 +118,11 @@ def _start_walkers(
         with np.errstate(invalid="ignore", divide="ignore"):
             u = coords.from_physical(physical)
             lp = log_prior(u)
-        inside = np.column_stack([u[k] for k in coords.names])[np.isfinite(lp)]
+        keep = np.isfinite(lp)
+        if np.any(keep):
+            kept = {k: v[keep] for k, v in u.items()}
+            keep[keep] = log_like(kept) >= peak - START_DEPTH
+        inside = np.column_stack([u[k] for k in coords.names])[keep]
         out = np.vstack([out, inside])
         if out.shape[0] >= walkers:
             return out[:walkers]
@@ -171,6 +196,7 @@ def sample_posterior(
             start = _start_walkers(
                 rng,
                 lambda u: prior.log_prob(coords.to_physical(u)),
+                partial(_sampler_log_likelihood, binned, coords),
                 coords,
                 fisher,
                 settings.walkers,

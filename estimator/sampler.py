@@ -84,6 +84,37 @@ class ChainResult:
         return self.log_prob[self.burn_in :: self.thin].reshape(-1)
 
 
+#: A walker whose best log-posterior over a whole check interval stays this far below
+#: the ensemble's median is stranded (a 4-parameter Gaussian posterior puts 99.9% of
+#: its mass within 9.2 of its peak: 0.5 chi^2_4 quantile, common practice).
+STRANDED_GAP = 25.0
+#: At most this many regroupings per run (each discards the chain so far).
+MAX_REGROUPS = 3
+
+
+def _regroup(state: emcee.State, recent: Array, *, rng_seed: int) -> Array | None:
+    """New positions when some walkers are stranded far below the rest, else ``None``.
+
+    A walker that starts in a wide, nearly flat region of negligible posterior
+    (noise-like likelihood, far from the signal) can stay there: differential-
+    evolution steps scale with the spread of the other walkers, which is small
+    once they have found the peak. Stranded walkers are moved onto the current
+    positions of randomly chosen others (the move's small jitter separates them);
+    the caller discards every earlier step, so the kept chain is an ordinary
+    emcee chain from the new start. Used only while burning in.
+    """
+    best = np.max(recent, axis=0)
+    median = float(np.median(state.log_prob))
+    stranded = best < median - STRANDED_GAP
+    if not np.any(stranded) or np.sum(~stranded) < 2:
+        return None
+    rng = np.random.default_rng(rng_seed)
+    coords = np.array(state.coords, copy=True)
+    good = np.flatnonzero(~stranded)
+    coords[stranded] = coords[rng.choice(good, size=int(np.sum(stranded)))]
+    return coords
+
+
 def run_ensemble(
     log_prob: Callable[[Mapping[str, Array]], Array],
     start: Array,
@@ -131,29 +162,41 @@ def run_ensemble(
     converged = False
     tau = np.full(ndim, np.nan)
     steps = 0
+    reset_at = 0  # every step before this one is discarded (see _regroup)
+    regroups = 0
     while steps < max_steps:
         n = min(check_every, max_steps - steps)
         state = sampler.run_mcmc(state, n, progress=False)
         steps += n
-        tau = sampler.get_autocorr_time(tol=0)
-        if steps >= min_steps and np.all(np.isfinite(tau)):
-            burn = int(2 * np.max(tau))
+        if regroups < MAX_REGROUPS:
+            regrouped = _regroup(state, sampler.get_log_prob()[-n:], rng_seed=seed + steps)
+            if regrouped is not None:
+                state = emcee.State(regrouped, random_state=state.random_state)
+                reset_at, old_tau, regroups = steps, np.full(ndim, np.inf), regroups + 1
+                continue
+        tau = sampler.get_autocorr_time(discard=reset_at, tol=0)
+        if steps - reset_at >= min_steps and np.all(np.isfinite(tau)):
+            burn = reset_at + int(2 * np.max(tau))
             ess = (steps - burn) * walkers / np.max(tau)
             settled = np.all(np.abs(old_tau - tau) / tau < settle_tolerance)
-            if np.all(tau * tau_factor < steps) and settled and ess >= target_effective_samples:
+            if (
+                np.all(tau * tau_factor < steps - reset_at)
+                and settled
+                and ess >= target_effective_samples
+            ):
                 converged = True
             if progress is not None:
                 # The larger of the two shortfalls decides how much is left.
-                need = max(
+                need = reset_at + max(
                     tau_factor * np.max(tau),
-                    target_effective_samples * np.max(tau) / walkers + burn,
+                    target_effective_samples * np.max(tau) / walkers + burn - reset_at,
                 )
                 progress(min(1.0, steps / max(need, 1.0)))
         old_tau = tau
         if converged:
             break
     tau = np.where(np.isfinite(tau), tau, float(steps))
-    burn = min(int(2 * np.max(tau)), steps // 2)
+    burn = max(reset_at, min(int(2 * np.max(tau)), steps // 2))
     thin = max(1, int(0.5 * np.min(tau)))
     return ChainResult(
         names=names,

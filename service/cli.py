@@ -67,6 +67,28 @@ class _ProgressBar:
         if self._bar is not None:
             self._bar.close()
 
+    def preview(self, fisher: Any) -> None:
+        """Print the Fisher-matrix first look above the bar (nothing when it is off)."""
+        if self._bar is None:
+            return
+        from .formatting import format_uncertain
+
+        names = {
+            "chirp_mass": "chirp mass",
+            "symmetric_mass_ratio": "eta",
+            "coalescence_time": "t_c - trigger",
+            "effective_distance": "effective distance",
+        }
+        parts = []
+        for name, entry in fisher.to_dict()["parameters"].items():
+            shown = format_uncertain(entry["value"], entry["sigma"])
+            unit = f" {entry['unit']}" if entry["unit"] else ""
+            parts.append(f"{names.get(name, name)} {shown['value']} ± {shown['sigma']}{unit}")
+        self._bar.write(
+            f"first look (Fisher matrix, optimal SNR {fisher.snr:.1f}): " + ", ".join(parts),
+            file=sys.stderr,
+        )
+
 
 def _add_analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument(
@@ -323,7 +345,7 @@ def _run_analyze(args: argparse.Namespace) -> int:
     )
     bar = _ProgressBar(not args.quiet)
     try:
-        summary = analyze_files(request, args.out, progress=bar)
+        summary = analyze_files(request, args.out, progress=bar, preview=bar.preview)
     finally:
         bar.close()
     _print_result(summary, args.out)
