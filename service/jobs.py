@@ -1,18 +1,22 @@
-"""The life of an analysis in the queue: claim, heartbeat, progress, finish, requeue.
+"""The life of an analysis in the queue: claim, heartbeat, progress, preview, finish, requeue.
 
 Every state change is one SQL statement (or one ``BEGIN IMMEDIATE`` transaction)
 guarded by the claiming worker's id and attempt number, so a worker that lost its
 claim (its heartbeat went stale and the job was taken up again) can no longer
 change the job: an accepted analysis is never lost, and never completed twice.
+A job that goes back to the queue loses its stage, progress and preview with its claim.
 """
 
 from __future__ import annotations
 
+import json
 import logging
+import math
 import shutil
 import time
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from .storage import Analysis, Store
 
@@ -23,6 +27,7 @@ __all__ = [
     "fail",
     "finish",
     "heartbeat",
+    "record_preview",
     "release",
     "requeue_stale",
     "still_ours",
@@ -54,7 +59,7 @@ def claim(store: Store, worker: str) -> Claim | None:
     with store.connect() as db:
         row = db.execute(
             "UPDATE analyses SET state = 'running', stage = 'starting', progress = 0,"
-            " worker = ?, attempts = attempts + 1, heartbeat = ?, updated = ?"
+            " preview = NULL, worker = ?, attempts = attempts + 1, heartbeat = ?, updated = ?"
             " WHERE id = (SELECT id FROM analyses WHERE state = 'queued'"
             " ORDER BY created, id LIMIT 1) AND state = 'queued' RETURNING *",
             (worker, now, now),
@@ -82,6 +87,33 @@ def heartbeat(
         cur = db.execute(
             f"UPDATE analyses SET {', '.join(sets)} WHERE {_GUARD}",
             (*args, job.id, job.worker, job.attempt),
+        )
+    return cur.rowcount == 1
+
+
+def _finite(value: Any) -> Any:
+    """``value`` with every NaN or infinity (nested in dicts and lists) replaced by ``None``."""
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {str(k): _finite(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_finite(v) for v in value]
+    return value
+
+
+def record_preview(store: Store, job: Claim, preview: dict[str, Any]) -> bool:
+    """Store the Fisher-matrix first look of ``job`` as JSON; ``False`` if the claim is lost.
+
+    ``preview`` is ``FisherEstimate.to_dict()``; a width that is not finite (a
+    degenerate Fisher matrix) is stored as ``null``, which JSON can carry.
+    """
+    text = json.dumps(_finite(preview), allow_nan=False)
+    now = time.time()
+    with store.connect() as db:
+        cur = db.execute(
+            f"UPDATE analyses SET preview = ?, heartbeat = ?, updated = ? WHERE {_GUARD}",
+            (text, now, now, job.id, job.worker, job.attempt),
         )
     return cur.rowcount == 1
 
@@ -135,7 +167,7 @@ def release(store: Store, job: Claim) -> bool:
     with store.connect() as db:
         cur = db.execute(
             "UPDATE analyses SET state = 'queued', stage = 'queued', progress = 0,"
-            f" worker = NULL, updated = ? WHERE {_GUARD}",
+            f" preview = NULL, worker = NULL, updated = ? WHERE {_GUARD}",
             (now, job.id, job.worker, job.attempt),
         )
     return cur.rowcount == 1
@@ -182,7 +214,8 @@ def requeue_stale(
         ).fetchall()
         requeued = db.execute(
             "UPDATE analyses SET state = 'queued', stage = 'queued', progress = 0,"
-            " worker = NULL, updated = ? WHERE state = 'running' AND heartbeat < ?"
+            " preview = NULL, worker = NULL, updated = ? WHERE state = 'running'"
+            " AND heartbeat < ?"
             " RETURNING id",
             (now, cutoff),
         ).fetchall()

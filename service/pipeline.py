@@ -26,6 +26,7 @@ from estimator import plots
 from estimator.analysis import AnalysisResult, AnalysisSettings, run_analysis
 from estimator.data import NoiseSpectrum, StrainSegment
 from estimator.errors import InputError
+from estimator.fisher import FisherEstimate
 from estimator.io import read_psd, read_strain, sha256_file
 from estimator.products import plot_data
 from estimator.summary import PARAMETER_LABELS, PARAMETER_UNITS, build_summary, derive_samples
@@ -74,6 +75,8 @@ SAMPLE_COLUMNS = (
 )
 
 Progress = Callable[[str, float, float], None]
+#: Called with the Fisher-matrix first look once the best fit is found, before sampling.
+Preview = Callable[[FisherEstimate], None]
 
 
 @dataclass(frozen=True)
@@ -116,9 +119,16 @@ def _inputs(
 
 
 def analyze_files(
-    request: AnalysisRequest, out_dir: Path, *, progress: Progress | None = None
+    request: AnalysisRequest,
+    out_dir: Path,
+    *,
+    progress: Progress | None = None,
+    preview: Preview | None = None,
 ) -> dict[str, Any]:
-    """Read the files, run the analysis, write the output folder; return the summary."""
+    """Read the files, run the analysis, write the output folder; return the summary.
+
+    ``preview`` is handed to :func:`estimator.analysis.run_analysis`.
+    """
     clock = time.perf_counter()
     check_output_folder(Path(out_dir), OUTPUT_FILES)
     if progress is not None:
@@ -129,7 +139,7 @@ def analyze_files(
     spectrum = read_psd(request.psd_path, asd=request.asd) if request.psd_path else None
     inputs = _inputs(request, segment, spectrum)
     reading = time.perf_counter() - clock
-    result = run_analysis(segment, spectrum, request.settings, progress=progress)
+    result = run_analysis(segment, spectrum, request.settings, progress=progress, preview=preview)
     result.timings["reading"] = reading
     label = request.label or request.strain_path.stem
     return write_outputs(result, out_dir, inputs=inputs, label=label, progress=progress)

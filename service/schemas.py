@@ -13,6 +13,8 @@ __all__ = [
     "ApiModel",
     "ErrorBody",
     "ErrorInfo",
+    "FisherParameter",
+    "FisherPreview",
     "Health",
     "ProgressEvent",
     "ShareLink",
@@ -80,6 +82,31 @@ class AnalysisError(ApiModel):
     field: str | None = None
 
 
+class FisherParameter(ApiModel):
+    """One parameter of the Fisher-matrix first look: best-fit value and 1-sigma width."""
+
+    model_config = ConfigDict(extra="allow")  # the estimator may add fields; pass them on
+
+    value: float | None = Field(description="at the maximum-likelihood point, in ``unit``")
+    sigma: float | None = Field(description="1-sigma width (null: the matrix is degenerate)")
+    unit: str = Field(description="Msun, s (from the trigger time), Mpc; '' when none")
+
+
+class FisherPreview(ApiModel):
+    """Gaussian approximation of the widths at the best fit (Cutler & Flanagan 1994)."""
+
+    model_config = ConfigDict(extra="allow")  # the estimator may add fields; pass them on
+
+    method: str = Field(description="how the estimate was made")
+    snr: float | None = Field(description="optimal SNR of the best-fit model")
+    parameters: dict[str, FisherParameter] = Field(
+        description="chirp_mass, symmetric_mass_ratio, coalescence_time, effective_distance"
+    )
+    correlation_chirp_mass_symmetric_mass_ratio: float | None = Field(
+        None, description="correlation coefficient of chirp mass and symmetric mass ratio"
+    )
+
+
 class AnalysisPublic(ApiModel):
     """An analysis as the API shows it."""
 
@@ -93,6 +120,11 @@ class AnalysisPublic(ApiModel):
     updated: float = Field(description="Unix time, s")
     attempts: int
     summary: dict[str, Any] | None = Field(None, description="summary.json, when done")
+    preview: FisherPreview | None = Field(
+        None,
+        description="Fisher-matrix first look of the widths, from the best fit on, before"
+        " sampling ends; an approximation the summary replaces (null until known)",
+    )
     status_url: str
     report_url: str | None = Field(None, description="share link (only in the submit answer)")
     files: dict[str, str] = Field(default_factory=dict, description="download URLs, when done")

@@ -47,7 +47,8 @@ CREATE TABLE IF NOT EXISTS analyses (
     attempts INTEGER NOT NULL DEFAULT 0,
     heartbeat REAL,
     created REAL NOT NULL,
-    updated REAL NOT NULL
+    updated REAL NOT NULL,
+    preview TEXT
 );
 CREATE INDEX IF NOT EXISTS analyses_state ON analyses (state, created);
 CREATE UNIQUE INDEX IF NOT EXISTS analyses_idempotency
@@ -59,6 +60,8 @@ CREATE TABLE IF NOT EXISTS api_keys (
     created REAL NOT NULL
 );
 """
+#: Columns added after the first release: (name, SQL type), added to older files when opened.
+_ADDED_COLUMNS = (("preview", "TEXT"),)
 
 
 def hash_secret(value: str) -> str:
@@ -88,6 +91,8 @@ class Analysis:
     heartbeat: float | None
     created: float
     updated: float
+    #: The Fisher-matrix first look (``FisherEstimate.to_dict()``) once the fit is found.
+    preview: dict[str, Any] | None = None
 
     @classmethod
     def from_row(cls, row: sqlite3.Row) -> Analysis:
@@ -96,6 +101,8 @@ class Analysis:
         values["shared"] = values.pop("share_hash", None) is not None
         values["request"] = json.loads(values["request"])
         values["inputs"] = json.loads(values["inputs"])
+        preview = values.pop("preview", None)
+        values["preview"] = json.loads(preview) if preview else None
         return cls(**values)
 
 
@@ -108,12 +115,21 @@ class Store:
 
     # -- setup and connections -------------------------------------------------
     def initialize(self) -> None:
-        """Create the folders, the schema (idempotent) and switch the file to WAL mode."""
+        """Create the folders and the schema (idempotent), upgrade an older file, use WAL mode."""
         (self.data_dir / "analyses").mkdir(parents=True, exist_ok=True)
         (self.data_dir / "tmp").mkdir(parents=True, exist_ok=True)
         with self.connect() as db:
             db.execute("PRAGMA journal_mode=WAL")
             db.executescript(_SCHEMA)
+        self._add_missing_columns()
+
+    def _add_missing_columns(self) -> None:
+        """Add the columns of :data:`_ADDED_COLUMNS` that an older database lacks, in place."""
+        with self.transaction() as db:  # BEGIN IMMEDIATE: two processes opening it do not race
+            present = {str(r["name"]) for r in db.execute("PRAGMA table_info(analyses)")}
+            for name, kind in _ADDED_COLUMNS:
+                if name not in present:
+                    db.execute(f"ALTER TABLE analyses ADD COLUMN {name} {kind}")
 
     @contextmanager
     def connect(self) -> Iterator[sqlite3.Connection]:

@@ -3,7 +3,8 @@
 A worker claims one analysis at a time (:func:`service.jobs.claim`), runs
 :func:`service.pipeline.analyze_files` into ``analyses/<id>/attempt-<n>/``,
 sends a heartbeat every ``heartbeat_seconds`` from a helper thread, writes stage
-and progress at most every 0.5 s, and stops early when the analysis is cancelled
+and progress at most every 0.5 s, stores the Fisher-matrix first look as soon as
+the analysis hands it over (before sampling), and stops early when the analysis is cancelled
 or its claim is lost. On SIGTERM it puts its analysis back in the queue at the next progress report.
 """
 
@@ -21,7 +22,7 @@ import time
 import uuid
 from multiprocessing.context import SpawnProcess
 from multiprocessing.synchronize import Event
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from estimator.errors import ConvergenceError, InputError
 from estimator.settings import AnalysisSettings
@@ -29,6 +30,9 @@ from estimator.settings import AnalysisSettings
 from . import jobs
 from .settings import ServiceSettings
 from .storage import Store
+
+if TYPE_CHECKING:
+    from estimator.fisher import FisherEstimate
 
 __all__ = ["WorkerPool", "build_request", "run_one_job", "worker_main"]
 
@@ -101,6 +105,14 @@ class _Reporter:
                 self.lost.set()
                 raise _Stop
 
+    def preview(self, estimate: FisherEstimate) -> None:
+        """Store the Fisher-matrix first look in the job's row (a failure is only logged)."""
+        try:
+            if not jobs.record_preview(self.store, self.job, estimate.to_dict()):
+                self.lost.set()  # the next progress report stops the analysis
+        except Exception:  # a first look must never stop the analysis itself
+            log.exception("preview of %s could not be stored", self.job.id)
+
 
 def _run(store: Store, job: jobs.Claim, settings: ServiceSettings) -> None:
     from .pipeline import analyze_files
@@ -112,7 +124,7 @@ def _run(store: Store, job: jobs.Claim, settings: ServiceSettings) -> None:
     try:
         request = build_request(store, job.id, job.analysis.request)
         with _Reporter(store, job, settings.heartbeat_seconds) as reporter:
-            analyze_files(request, attempt_dir, progress=reporter)
+            analyze_files(request, attempt_dir, progress=reporter, preview=reporter.preview)
             if reporter.lost.is_set():
                 raise _Stop
         if not jobs.finish(store, job, attempt_dir):

@@ -111,7 +111,7 @@ def _submitted(store: Store, analysis: Analysis) -> Submitted:
 
 def public_view(store: Store, analysis: Analysis, *, summary: bool = True,
                 with_share: bool = False) -> AnalysisPublic:
-    """The API view of an analysis (summary and file URLs once done)."""
+    """The API view of an analysis (its preview once known; summary and file URLs once done)."""
     files: dict[str, str] = {}
     data: dict[str, Any] | None = None
     out = store.output_dir(analysis.id)
@@ -131,7 +131,7 @@ def public_view(store: Store, analysis: Analysis, *, summary: bool = True,
         "progress": analysis.progress, "error": error, "label": analysis.label,
         "created": analysis.created, "updated": analysis.updated, "attempts": analysis.attempts,
         "summary": data, "status_url": f"/api/v1/analyses/{analysis.id}",
-        "report_url": report_url, "files": files,
+        "report_url": report_url, "files": files, "preview": analysis.preview,
     })
 
 
@@ -216,7 +216,7 @@ def list_analyses(
 
 @router.get("/{analysis_id}", response_model=AnalysisPublic)
 def read_analysis(analysis_id: str, store: StoreDep, owner: OptionalKeyDep) -> AnalysisPublic:
-    """State, stage, progress, error or summary of one analysis."""
+    """State, stage, progress, error, Fisher-matrix preview or summary of one analysis."""
     return public_view(store, _found(store, analysis_id), with_share=owner is not None)
 
 

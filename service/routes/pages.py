@@ -17,7 +17,9 @@ status.html
     ``analysis_id``, ``label``, ``state``, ``stage`` (str), ``progress`` (float, 0..1),
     ``events_url``, ``status_url``, ``upload_url`` (str); optional ``error_message`` and
     ``error_field`` (str or None), ``stage_label`` and ``error_field_label`` (display text),
-    ``stage_labels`` and ``field_labels`` (name -> display text, for the page's script).
+    ``stage_labels`` and ``field_labels`` (name -> display text, for the page's script),
+    ``preview`` (the Fisher-matrix first look as display text, see :func:`preview_context`,
+    or None).
 """
 
 from __future__ import annotations
@@ -34,16 +36,18 @@ from fastapi.responses import HTMLResponse
 
 from estimator.settings import AnalysisSettings
 
-from ..formatting import format_value
+from ..formatting import format_fixed, format_uncertain, format_value
 from ..report import TEMPLATES_DIR
 
 __all__ = [
     "API_PREFIX",
     "FIELD_LABELS",
     "FINAL_STATES",
+    "PREVIEW_LABELS",
     "STAGE_LABELS",
     "STATES",
     "UPLOAD_URL",
+    "preview_context",
     "render_page",
     "render_status",
     "router",
@@ -78,6 +82,17 @@ FIELD_LABELS: dict[str, str] = {
     "chirp_mass_guess": "the chirp-mass guess", "f_low": "the lower frequency f_low",
     "f_high": "the upper frequency f_high", "label": "the label", "seed": "the seed",
 }
+#: How the status page names the parameters of the Fisher-matrix first look.
+PREVIEW_LABELS: dict[str, str] = {
+    "chirp_mass": "Chirp mass (detector frame)",
+    "symmetric_mass_ratio": "Symmetric mass ratio η",
+    "coalescence_time": "Coalescence time − trigger time",
+    "effective_distance": "Effective distance",
+}
+#: Unit of the preview's data -> (unit shown, factor into it).
+_PREVIEW_UNITS: dict[str, tuple[str, float]] = {
+    "Msun": ("M☉", 1.0), "s": ("ms", 1e3), "": ("—", 1.0),
+}
 #: Headers of every page: never cached (the status page changes, the form is cheap).
 _PAGE_HEADERS = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"}
 
@@ -110,13 +125,40 @@ def upload_context() -> dict[str, str]:
     return {"submit_url": f"{API_PREFIX}/analyses", "f_low_default": format_value(_default_f_low())}
 
 
+def _number(value: Any) -> float | None:
+    return float(value) if isinstance(value, int | float) and not isinstance(value, bool) else None
+
+
+def preview_context(preview: Mapping[str, Any]) -> dict[str, Any]:
+    """The Fisher-matrix first look (``FisherEstimate.to_dict()``) as display text.
+
+    Returns ``rows``, one per parameter in the order given, each with ``name``,
+    ``label``, ``value``, ``sigma``, ``text`` (``"24.19 ± 0.76"``) and ``unit``
+    (times in ms, masses in M☉), and ``snr`` (one decimal).
+    """
+    rows = []
+    for name, entry in dict(preview.get("parameters") or {}).items():
+        raw_unit = str(entry.get("unit", ""))
+        unit, factor = _PREVIEW_UNITS.get(raw_unit, (raw_unit, 1.0))
+        value, sigma = _number(entry.get("value")), _number(entry.get("sigma"))
+        shown = format_uncertain(
+            None if value is None else factor * value, None if sigma is None else factor * sigma)
+        text = shown["value"] if shown["sigma"] == "n/a" else f"{shown['value']} ± {shown['sigma']}"
+        rows.append({"name": name, "label": PREVIEW_LABELS.get(name, name.replace("_", " ")),
+                     "unit": unit, "text": text, **shown})
+    snr = _number(preview.get("snr"))
+    return {"rows": rows, "snr": format_fixed(snr, 1) if snr is not None else "n/a"}
+
+
 def status_context(
     analysis_id: str, *, state: str, stage: str | None = None, progress: float = 0.0,
     label: str | None = None, error_message: str | None = None, error_field: str | None = None,
+    preview: Mapping[str, Any] | None = None,
 ) -> dict[str, Any]:
     """The context of ``status.html`` for one analysis, with the URLs of the REST contract.
 
-    ``progress`` is clipped to [0, 1] (a non-finite value counts as 0).
+    ``progress`` is clipped to [0, 1] (a non-finite value counts as 0). ``preview``
+    (``FisherEstimate.to_dict()``) is shown only while the analysis is not finished.
     """
     if state not in STATES:
         msg = f"state {state!r} is not one of {', '.join(STATES)}; pass the analysis's state"
@@ -132,17 +174,19 @@ def status_context(
         "stage_label": STAGE_LABELS.get(shown, shown),
         "error_field_label": FIELD_LABELS.get(error_field, error_field) if error_field else None,
         "stage_labels": STAGE_LABELS, "field_labels": FIELD_LABELS,
+        "preview": preview_context(preview) if preview and state not in FINAL_STATES else None,
     }
 
 
 def render_status(
     analysis_id: str, *, state: str, stage: str | None = None, progress: float = 0.0,
     label: str | None = None, error_message: str | None = None, error_field: str | None = None,
+    preview: Mapping[str, Any] | None = None,
 ) -> str:
     """Render the live status page of one analysis (see :func:`status_context`)."""
     return render_page("status.html", status_context(
         analysis_id, state=state, stage=stage, progress=progress, label=label,
-        error_message=error_message, error_field=error_field))
+        error_message=error_message, error_field=error_field, preview=preview))
 
 
 @router.get("/", response_class=HTMLResponse, summary="Upload page")

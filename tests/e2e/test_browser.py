@@ -4,8 +4,9 @@
    watch the progress bar advance, get the report and check what it shows; then upload
    a three-column text file and see the strain error.
 2. Against a small stand-in for the REST API (canned answers, in-process uvicorn): the
-   upload form puts each error where the service contract (issue 3) says it goes, and the
-   status page follows server-sent events to "done" and reloads into the report.
+   upload form puts each error where the service contract (issue 3) says it goes, the
+   status page follows server-sent events to "done" and reloads into the report, and it
+   fetches the Fisher-matrix first look when a new stage shows it is known.
 
 Skipped only when /usr/bin/chromium is absent (.ci/run installs it). Every wait is bounded.
 """
@@ -34,6 +35,13 @@ ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking"]
 CAUTION = "Automated, preliminary estimate"
 DEMO = REPO_ROOT / "demo_data"
 TRIGGER = "2000000012.004"  # demo_data/event.json
+#: A first look of the shape FisherEstimate.to_dict() gives (numbers made up for the stub).
+PREVIEW = {"method": "Fisher matrix", "snr": 20.22,
+           "correlation_chirp_mass_symmetric_mass_ratio": 0.98, "parameters": {
+               "chirp_mass": {"value": 24.189, "sigma": 0.7558, "unit": "Msun"},
+               "symmetric_mass_ratio": {"value": 0.2431, "sigma": 0.0389, "unit": ""},
+               "coalescence_time": {"value": -0.004, "sigma": 0.001, "unit": "s"},
+               "effective_distance": {"value": 1019.7, "sigma": 57.0, "unit": "Mpc"}}}
 FAILURE = "p.txt line 9: frequency 12.0 Hz is not above 12.5 Hz; sort the rows by frequency"
 
 pytestmark = [
@@ -216,8 +224,35 @@ def _stub_app() -> Any:
         return HTMLResponse("<html><body><h1>stub</h1><section id='summary'>report</section>"
                             "</body></html>")
 
+    @app.get("/api/v1/analyses/p1/events")
+    def preview_events() -> StreamingResponse:
+        def stream() -> Iterator[str]:
+            update = {"state": "running", "stage": "fiducial", "progress": 0.3}
+            yield f"data: {json.dumps(update)}\n\n"
+            time.sleep(0.3)
+            app.state.preview_ready = True  # stored before the sampling stage is reported
+            update = {"state": "running", "stage": "sampling", "progress": 0.4}
+            yield f"data: {json.dumps(update)}\n\n"
+            for _ in range(10):  # then stay open for at most 5 s
+                time.sleep(0.5)
+                yield ": keep-alive\n\n"
+        return StreamingResponse(stream(), media_type="text/event-stream")
+
+    @app.get("/api/v1/analyses/p1")
+    def preview_status() -> JSONResponse:
+        return JSONResponse({"id": "p1", "state": "running", "stage": "sampling",
+                             "progress": 0.4, "preview": PREVIEW})
+
+    @app.get("/r/prev")
+    def preview_page() -> HTMLResponse:
+        app.state.preview_pages += 1
+        return HTMLResponse(pages.render_status(
+            "p1", state="running", stage="fiducial" if not app.state.preview_ready else "sampling",
+            progress=0.3, preview=PREVIEW if app.state.preview_ready else None))
+
     app.state.progress = 0.0
     app.state.submitted = submitted
+    app.state.preview_ready, app.state.preview_pages = False, 0
     return app
 
 
@@ -301,3 +336,19 @@ def test_status_page_shows_a_failure_with_a_way_back(page: Any, stub: tuple[str,
     page.screenshot(path=str(tmp_path / "failed.png"), full_page=True)
     page.click("#failure a")
     page.wait_for_url(base + "/", timeout=10_000)
+
+
+def test_status_page_fetches_the_first_look_when_it_is_known(page: Any,
+                                                            stub: tuple[str, Any]) -> None:
+    base, app = stub
+    app.state.preview_ready, app.state.preview_pages = False, 0
+    page.goto(base + "/r/prev")  # served without a preview
+    page.wait_for_function("() => !document.getElementById('preview').hidden"
+                           " && document.getElementById('preview-table')", timeout=10_000)
+    assert app.state.preview_pages >= 2  # the table came from fetching the page again
+    text = page.inner_text("#preview")
+    assert "First look — Fisher-matrix estimate" in text
+    assert "24.19 ± 0.76" in text
+    assert "Optimal SNR of the best-fit model: 20.2" in text
+    assert "Cutler & Flanagan 1994" in text
+    assert page.inner_text("#stage") == "Sampling the posterior"

@@ -248,7 +248,8 @@ def test_reweighting_recovers_the_target_distribution() -> None:
     samples, log_like, out = _reweight_exactly(
         {"x": x}, -0.5 * x**2, _ShiftedNormal(), check, rng  # type: ignore[arg-type]
     )
-    assert out.reweighted and not out.passed
+    assert out.reweighted
+    assert not out.passed
     assert out.reweight_efficiency == pytest.approx(np.exp(-1.0), abs=0.03)
     assert abs(samples["x"].mean() - 1.0) < 0.06
     assert np.allclose(log_like, -0.5 * (samples["x"] - 1.0) ** 2)
@@ -260,13 +261,15 @@ def test_failed_check_falls_back_to_the_exact_likelihood(segment: StrainSegment)
 
     settings = dataclasses.replace(_settings(), likelihood_tolerance=1e-9, max_refinements=0)
     result = run_analysis(segment, SPECTRUM, settings)
-    assert not result.check.passed and result.check.reweighted
+    assert not result.check.passed
+    assert result.check.reweighted
     assert 0.5 < result.check.reweight_efficiency <= 1.0  # binned and exact differ by ~0.01
     exact = ExactLikelihood([result.data], settings.trigger_time)
     head = {k: v[:50] for k, v in result.samples.items()}
     assert np.allclose(exact.log_likelihood(head), result.sample_log_likelihood[:50], atol=1e-6)
     check = next(c for c in assess_quality(result).checks if c.name == "likelihood_check")
-    assert not check.passed and "exact likelihood was then used" in check.explanation
+    assert not check.passed
+    assert "exact likelihood was then used" in check.explanation
     summary = build_summary(result, derive_samples(result, np.random.default_rng(0)),
                             inputs={}, label="fallback")  # fmt: skip
     assert summary["diagnostics"]["likelihood_check"]["reweighted_with_exact_likelihood"]

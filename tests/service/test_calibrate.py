@@ -32,13 +32,16 @@ def test_reduced_calibration_run(tmp_path: Path, capsys: pytest.CaptureFixture[s
     doc = json.loads((out / "calibration.json").read_text())
     with (out / "runs.csv").open(encoding="utf-8") as fh:
         rows = list(csv.DictReader(fh))
-    assert len(rows) == 24 and doc["injections"] == 24
+    assert len(rows) == 24
+    assert doc["injections"] == 24
     assert (out / "pp_plot.png").stat().st_size > 20_000
-    assert doc["wall_time_s"] > 0 and "combined p" in printed
+    assert doc["wall_time_s"] > 0
+    assert "combined p" in printed
 
     # The injections span the prior: low observed SNR and unequal masses among them.
     snr = sorted(float(r["observed_snr"]) for r in rows)
-    assert snr[0] >= 8.0 and snr[len(snr) // 2] < 15.0
+    assert snr[0] >= 8.0
+    assert snr[len(snr) // 2] < 15.0
     assert doc["mass_ratio_below_0.5"] >= 3
     assert doc["not_converged"] == 0
 

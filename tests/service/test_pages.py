@@ -141,3 +141,65 @@ def test_status_context_clips_progress_and_builds_urls() -> None:
         "new-stage")  # an unknown stage is shown as it is
     with pytest.raises(ValueError, match="state 'finished' is not one of"):
         pages.status_context("id7", state="finished")
+
+
+# -- the Fisher-matrix first look -------------------------------------------------------
+# Numbers of the shape FisherEstimate.to_dict() gives, made up for these checks.
+PREVIEW = {
+    "method": "Fisher matrix", "snr": 20.2215,
+    "parameters": {
+        "chirp_mass": {"value": 24.18934, "sigma": 0.755805, "unit": "Msun"},
+        "symmetric_mass_ratio": {"value": 0.2431, "sigma": 0.03891, "unit": ""},
+        "coalescence_time": {"value": -0.0040219, "sigma": 0.0010133, "unit": "s"},
+        "effective_distance": {"value": 1019.746, "sigma": None, "unit": "Mpc"},
+    },
+    "correlation_chirp_mass_symmetric_mass_ratio": 0.98,
+}
+
+
+def test_preview_quotes_widths_to_two_significant_figures() -> None:
+    # Quoting a measurement (common practice; the Particle Data Group's rounding convention,
+    # Review of Particle Physics, "Introduction"): the width to two significant figures,
+    # the value to the same decimal place.
+    from service.formatting import MINUS, format_uncertain
+
+    assert format_uncertain(24.18934, 0.755805) == {"value": "24.19", "sigma": "0.76"}
+    assert format_uncertain(1019.746, 56.99) == {"value": "1020", "sigma": "57"}
+    assert format_uncertain(-4.0219, 1.0133) == {"value": MINUS + "4.0", "sigma": "1.0"}
+    assert format_uncertain(-0.3, 10.1) == {"value": "0", "sigma": "10"}  # no "−0"
+    assert format_uncertain(0.2431, None) == {"value": "0.2431", "sigma": "n/a"}
+    assert format_uncertain(float("nan"), 1.0)["value"] == "n/a"
+    rows = {r["name"]: r for r in pages.preview_context(PREVIEW)["rows"]}
+    assert [r["unit"] for r in rows.values()] == ["M☉", "—", "ms", "Mpc"]
+    assert rows["coalescence_time"]["text"] == MINUS + "4.0 ± 1.0"  # shown in ms
+    assert rows["effective_distance"]["text"] == "1020"  # no width: the value alone
+    assert pages.preview_context(PREVIEW)["snr"] == "20.2"
+
+
+def test_status_page_shows_the_first_look_while_running() -> None:
+    html = pages.render_status("p1", state="running", stage="sampling", progress=0.4,
+                               preview=PREVIEW)
+    doc = _parse(html)
+    assert "hidden" not in doc.by_id("preview")[1]
+    assert doc.by_id("preview-table")[0] == "table"
+    for name in PREVIEW["parameters"]:
+        assert doc.by_id(f"preview-{name}")[0] == "tr"
+    text = " ".join(" ".join(doc.text).split())  # the cells' texts, one space apart
+    assert "First look — Fisher-matrix estimate" in text
+    assert "Chirp mass (detector frame) 24.19 ± 0.76 M☉" in text
+    assert "Symmetric mass ratio η 0.243 ± 0.039 —" in text
+    assert "Optimal SNR of the best-fit model: 20.2 ." in text  # <b>20.2</b>.
+    assert "Gaussian approximation at the best-fit point" in text
+    assert "Cutler & Flanagan 1994" in text
+    assert "too narrow or too wide" in text
+    assert "the sampled posterior replaces them" in text
+
+
+@pytest.mark.parametrize("state", ["failed", "cancelled"])
+def test_status_page_hides_the_first_look_once_final(state: str) -> None:
+    doc = _parse(pages.render_status("p1", state=state, preview=PREVIEW))
+    assert "hidden" in doc.by_id("preview")[1]
+    assert not any(a.get("id") == "preview-table" for _, a in doc.tags)
+    assert pages.status_context("p1", state="done", preview=PREVIEW)["preview"] is None
+    running = _parse(pages.render_status("p1", state="running", stage="fiducial"))
+    assert "hidden" in running.by_id("preview")[1]  # not known yet
