@@ -20,6 +20,8 @@ from estimator import __version__
 from estimator.analysis import AnalysisSettings
 from estimator.errors import InputError
 
+from .commands import COMMANDS, add_commands
+
 __all__ = ["main"]
 
 log = logging.getLogger("chirpcast")
@@ -221,72 +223,8 @@ def _parser() -> argparse.ArgumentParser:
         help="strain file format (csv: two columns, GPS time and strain)",
     )
     sim.add_argument("--seed", type=int, default=1, help="noise seed (1)")
-    cal = sub.add_parser(
-        "calibrate",
-        help="check that credible intervals mean what they say: analyse prior-drawn injections",
-    )
-    cal.add_argument("--n", type=int, required=True, help="number of injections (at least 2)")
-    cal.add_argument("--seed", type=int, default=1, help="seed of the whole run (1)")
-    cal.add_argument("--out", type=Path, required=True, help="folder for the results")
-    cal.add_argument("--workers", type=int, help="parallel analyses (all cores)")
-    cal.add_argument(
-        "--snr-threshold", type=float, default=8.0, help="on the observed search SNR (8)"
-    )
-    _add_service_commands(sub)
+    add_commands(sub, _Parser)
     return parser
-
-
-def _add_service_commands(sub: Any) -> None:
-    serve = sub.add_parser("serve", help="run the web service and its workers on this machine")
-    serve.add_argument("--host", help="address to listen on (127.0.0.1; another needs API keys)")
-    serve.add_argument("--port", type=int, help="TCP port (8000)")
-    serve.add_argument("--data-dir", type=Path, help="folder of the database and analyses")
-    serve.add_argument("--workers", type=int, help="analysis processes (cores - 1, at least 1)")
-    keys = sub.add_parser("keys", help="manage the service's API keys")
-    keys_sub = keys.add_subparsers(dest="keys_command", required=True, parser_class=_Parser)
-    add = keys_sub.add_parser("add", help="create an API key and print it (shown only once)")
-    add.add_argument("name", help="who the key is for")
-    add.add_argument("--data-dir", type=Path, help="the service's data folder")
-
-
-def _service_settings(args: argparse.Namespace) -> Any:
-    from pydantic import ValidationError
-
-    from .settings import ServiceSettings
-
-    given = {k: getattr(args, k, None) for k in ("host", "port", "data_dir", "workers")}
-    try:
-        return ServiceSettings(**{k: v for k, v in given.items() if v is not None})
-    except ValidationError as err:
-        first = err.errors()[0]
-        name = ".".join(str(p) for p in first["loc"])
-        msg = f"{name}: {first['msg']} (got {first.get('input')!r})"
-        raise InputError(msg, field=name) from err
-
-
-def _run_serve(args: argparse.Namespace) -> int:
-    from .serve import serve
-
-    logging.getLogger().setLevel(logging.DEBUG if args.debug else logging.INFO)
-    settings = _service_settings(args)
-    sys.stderr.write(
-        f"chirpcast: serving http://{settings.host}:{settings.port}/ with"
-        f" {settings.workers} worker(s); data in {settings.data_dir}\n"
-    )
-    return serve(settings)
-
-
-def _run_keys(args: argparse.Namespace) -> int:
-    from .storage import Store
-
-    store = Store(_service_settings(args).data_dir)
-    store.initialize()
-    key = store.add_key(args.name)
-    sys.stdout.write(key + "\n")
-    sys.stderr.write(
-        f"chirpcast: API key for {args.name!r} created; it is shown only now: keep it safe\n"
-    )
-    return EXIT_OK
 
 
 def _settings(args: argparse.Namespace) -> AnalysisSettings:
@@ -381,46 +319,6 @@ def _run_simulate(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def _run_calibrate(args: argparse.Namespace) -> int:
-    from .calibrate import CALIBRATION_FILES, CalibrationSetup, run_calibration
-
-    if args.n < 2:
-        msg = f"--n {args.n}: a calibration needs at least 2 injections (200 or more to trust it)"
-        raise InputError(msg, field="n")
-    if args.workers is not None and args.workers < 1:
-        raise InputError(f"--workers {args.workers}: give at least 1", field="workers")
-    setup = CalibrationSetup(injections=args.n, seed=args.seed, snr_threshold=args.snr_threshold)
-    bar: Any = None
-    if not args.quiet:
-        from tqdm import tqdm
-
-        bar = tqdm(total=args.n, file=sys.stderr, unit="injection", desc="calibration")
-    try:
-        doc = run_calibration(
-            setup, args.out, workers=args.workers, progress=lambda *_: bar and bar.update(1)
-        )
-    finally:
-        if bar is not None:
-            bar.close()
-    lines = [
-        f"{doc['injections']} injections, {doc['wall_time_s']:.0f} s on "
-        f"{doc['workers']} processes; {doc['selection']}"
-    ]
-    lines.append(f"{'parameter':<20} {'KS p':>6} {'50% cov.':>9} {'90% cov.':>9}")
-    for name, entry in doc["parameters"].items():
-        cov = entry["coverage"]
-        lines.append(f"{name:<20} {entry['ks_p_value']:6.3f} {cov['0.5']:9.2f} {cov['0.9']:9.2f}")
-    band = doc["coverage_band"]
-    lines.append(
-        f"combined p (Fisher's method) = {doc['combined_p_value']:.3f}; a calibrated analysis "
-        f"has 50% coverage in [{band['0.5'][0]:.2f}, {band['0.5'][1]:.2f}] and 90% coverage "
-        f"in [{band['0.9'][0]:.2f}, {band['0.9'][1]:.2f}] with probability 0.9"
-    )
-    lines.append("wrote " + ", ".join(str(args.out / f) for f in CALIBRATION_FILES))
-    sys.stdout.write("\n".join(lines) + "\n")
-    return EXIT_OK
-
-
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``chirpcast`` command; returns the exit code."""
     args = _parser().parse_args(argv)
@@ -432,9 +330,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         "analyze": _run_analyze,
         "demo": _run_demo,
         "simulate": _run_simulate,
-        "calibrate": _run_calibrate,
-        "serve": _run_serve,
-        "keys": _run_keys,
+        **COMMANDS,
     }
     try:
         return commands[args.command](args)
