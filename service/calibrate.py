@@ -215,7 +215,8 @@ def run_calibration(
         writer = csv.DictWriter(fh, fieldnames=list(rows[0]))
         writer.writeheader()
         writer.writerows(rows)
-    pp_plot(summary, out_dir / "pp_plot.png", labels=PARAMETER_LABELS)
+    labels = {**PARAMETER_LABELS, "coalescence_time": "coalescence time"}
+    pp_plot(summary, out_dir / "pp_plot.png", labels=labels)
     snr = np.array([r["observed_snr"] for r in rows])
     document = {
         **summary.to_dict(),
