@@ -37,6 +37,7 @@ __all__ = [
     "AnalysisSettings",
     "LikelihoodCheck",
     "Progress",
+    "analysis_prior",
     "run_analysis",
     "settings_dict",
 ]
@@ -92,6 +93,17 @@ def _report(progress: Progress | None, stage: str) -> Callable[[float], None]:
     return call
 
 
+def analysis_prior(settings: AnalysisSettings) -> InspiralPrior:
+    """The prior an analysis with ``settings`` samples under (see :mod:`estimator.priors`)."""
+    return InspiralPrior(
+        chirp_mass=settings.chirp_mass_range,
+        mass_ratio=settings.mass_ratio_range,
+        component_mass=settings.component_mass_range,
+        distance_max=settings.distance_max,
+        time_window=settings.time_window,
+    )
+
+
 def run_analysis(
     segment: StrainSegment,
     spectrum: NoiseSpectrum | None,
@@ -140,13 +152,7 @@ def run_analysis(
             )
             raise InputError(msg, field="chirp_mass_guess")
         search_range = (max(mc_range[0], guess * 0.9), min(mc_range[1], guess * 1.1))
-    prior = InspiralPrior(
-        chirp_mass=mc_range,
-        mass_ratio=settings.mass_ratio_range,
-        component_mass=settings.component_mass_range,
-        distance_max=settings.distance_max,
-        time_window=settings.time_window,
-    )
+    prior = analysis_prior(settings)
     data = condition(
         segment,
         spectrum,

@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 
-from estimator.analysis import AnalysisSettings, run_analysis
+from estimator.analysis import AnalysisSettings, analysis_prior, run_analysis
 from estimator.calibration import credible_level, summarize_levels
 from estimator.priors import InspiralPrior
 from estimator.search import search_chirp_mass
@@ -86,14 +86,7 @@ class CalibrationSetup:
 
     def prior(self) -> InspiralPrior:
         """The prior the truths are drawn from: the analysis prior of :meth:`settings`."""
-        s = self.settings(0)
-        return InspiralPrior(
-            chirp_mass=s.chirp_mass_range,
-            mass_ratio=s.mass_ratio_range,
-            component_mass=s.component_mass_range,
-            distance_max=s.distance_max,
-            time_window=s.time_window,
-        )
+        return analysis_prior(self.settings(0))
 
 
 def run_injection(setup: CalibrationSetup, index: int) -> dict[str, Any]:
