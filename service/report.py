@@ -27,6 +27,7 @@ from .formatting import (
 )
 
 __all__ = [
+    "FISHER_LABELS",
     "PLOT_ORDER",
     "QUALITY_TITLES",
     "TEMPLATES_DIR",
@@ -177,10 +178,12 @@ def _quality(raw: Mapping[str, Any] | None) -> list[dict[str, Any]] | None:
     return rows
 
 
-#: Row labels of the Fisher cross-check.
+#: Row labels of the Fisher first look and cross-check (report and status page).
 FISHER_LABELS: Mapping[str, str] = {
-    "chirp_mass": "Chirp mass (detector frame)", "symmetric_mass_ratio": "Symmetric mass ratio η",
-    "coalescence_time": "Coalescence time − trigger", "effective_distance": "Effective distance",
+    "chirp_mass": "Chirp mass (detector frame)",
+    "symmetric_mass_ratio": "Symmetric mass ratio η",
+    "coalescence_time": "Coalescence time − trigger time",
+    "effective_distance": "Effective distance",
 }
 
 

@@ -37,13 +37,12 @@ from fastapi.responses import HTMLResponse
 from estimator.settings import AnalysisSettings
 
 from ..formatting import format_fixed, format_uncertain, format_value
-from ..report import TEMPLATES_DIR
+from ..report import FISHER_LABELS, TEMPLATES_DIR
 
 __all__ = [
     "API_PREFIX",
     "FIELD_LABELS",
     "FINAL_STATES",
-    "PREVIEW_LABELS",
     "STAGE_LABELS",
     "STATES",
     "UPLOAD_URL",
@@ -81,13 +80,6 @@ FIELD_LABELS: dict[str, str] = {
     "sample_rate": "the sample rate", "start_time": "the start time",
     "chirp_mass_guess": "the chirp-mass guess", "f_low": "the lower frequency f_low",
     "f_high": "the upper frequency f_high", "label": "the label", "seed": "the seed",
-}
-#: How the status page names the parameters of the Fisher-matrix first look.
-PREVIEW_LABELS: dict[str, str] = {
-    "chirp_mass": "Chirp mass (detector frame)",
-    "symmetric_mass_ratio": "Symmetric mass ratio η",
-    "coalescence_time": "Coalescence time − trigger time",
-    "effective_distance": "Effective distance",
 }
 #: Unit of the preview's data -> (unit shown, factor into it).
 _PREVIEW_UNITS: dict[str, tuple[str, float]] = {
@@ -144,7 +136,7 @@ def preview_context(preview: Mapping[str, Any]) -> dict[str, Any]:
         shown = format_uncertain(
             None if value is None else factor * value, None if sigma is None else factor * sigma)
         text = shown["value"] if shown["sigma"] == "n/a" else f"{shown['value']} ± {shown['sigma']}"
-        rows.append({"name": name, "label": PREVIEW_LABELS.get(name, name.replace("_", " ")),
+        rows.append({"name": name, "label": FISHER_LABELS.get(name, name.replace("_", " ")),
                      "unit": unit, "text": text, **shown})
     snr = _number(preview.get("snr"))
     return {"rows": rows, "snr": format_fixed(snr, 1) if snr is not None else "n/a"}
