@@ -181,31 +181,43 @@ class InspiralPrior:
         -------
         Array of shape ``(n,)``.
         """
-        mc = np.asarray(params["chirp_mass"], dtype=float)
-        q = np.asarray(params["mass_ratio"], dtype=float)
         d_eff = np.asarray(params["effective_distance"], dtype=float)
         t = np.asarray(params["coalescence_time"], dtype=float)
         bounds = self.bounds
         ok = (t >= -self.time_window) & (t <= self.time_window)
-        for name, x in (("chirp_mass", mc), ("mass_ratio", q)):
-            ok &= (x >= bounds[name][0]) & (x <= bounds[name][1])
         ok &= (d_eff > 0.0) & (d_eff <= bounds["effective_distance"][1])
-        mc = np.where(ok, mc, 1.0)
-        q = np.where(ok, q, 1.0)
         d_eff = np.where(ok, d_eff, 1.0)
-        m1, m2 = component_masses(mc, q)
-        c_lo, c_hi = self.component_mass
-        ok &= (m2 >= c_lo) & (m1 <= c_hi) & (m1 >= c_lo) & (m2 <= c_hi)
         table = orientation_table()
         log_u = np.minimum(0.0, np.log(self.distance_max / d_eff))
         value = (
-            np.log(mc)
-            + 0.4 * np.log1p(q)
-            - 1.2 * np.log(q)
+            self.mass_log_prob(params["chirp_mass"], params["mass_ratio"])
             + 2.0 * np.log(d_eff)
             + np.interp(log_u, table.log_w, table.log_weighted)
         )
         return np.where(ok, value, -np.inf)
+
+    def mass_log_prob(self, chirp_mass: Array, mass_ratio: Array) -> Array:
+        """Log density of ``(Mc, q)`` for ``m1, m2`` uniform in the box (module docstring).
+
+        ``log Mc + (2/5) log(1+q) - (6/5) log q`` inside the bounds, ``-inf`` outside.
+        """
+        mc = np.asarray(chirp_mass, dtype=float)
+        q = np.asarray(mass_ratio, dtype=float)
+        bounds = self.bounds
+        ok = np.ones(mc.shape, dtype=bool)
+        for name, x in (("chirp_mass", mc), ("mass_ratio", q)):
+            ok &= (x >= bounds[name][0]) & (x <= bounds[name][1])
+        mc = np.where(ok, mc, 1.0)
+        q = np.where(ok, q, 1.0)
+        m1, m2 = component_masses(mc, q)
+        c_lo, c_hi = self.component_mass
+        ok &= (m2 >= c_lo) & (m1 <= c_hi) & (m1 >= c_lo) & (m2 <= c_hi)
+        value = np.log(mc) + 0.4 * np.log1p(q) - 1.2 * np.log(q)
+        return np.where(ok, value, -np.inf)
+
+    def sample_masses(self, rng: np.random.Generator, n: int) -> tuple[Array, Array]:
+        """``n`` draws of ``(Mc, q)`` from :meth:`mass_log_prob`'s law."""
+        return self._sample_masses(rng, n)
 
     def sample(self, rng: np.random.Generator, n: int) -> dict[str, Array]:
         """Draw ``n`` independent samples from the whole (truncated) prior.

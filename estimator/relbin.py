@@ -37,7 +37,7 @@ from .waveform import (
     taylorf2_phase,
 )
 
-__all__ = ["RelativeBinningLikelihood", "bin_edges"]
+__all__ = ["MassTerms", "RelativeBinningLikelihood", "bin_edges", "mass_terms"]
 
 Array = NDArray[np.float64]
 Params = Mapping[str, Array]
@@ -108,6 +108,76 @@ class _Binned:
             weights[1 : cut + 1] += 0.5 * self.a0[:cut] + self.a1[:cut] / self.widths[:cut]
             self._cut_cache[cut] = np.column_stack([weights.real, weights.imag])
         return self._cut_cache[cut]
+
+
+@dataclass(frozen=True)
+class MassTerms:
+    """Mass-dependent factors shared by every detector's binned overlap."""
+
+    log_mc: Array
+    eta: Array
+    log_c: Array
+    eta_powers: Array
+    f_isco: Array
+
+
+def mass_terms(chirp_mass: Array, mass_ratio: Array) -> MassTerms:
+    """:class:`MassTerms` of parameter sets ``(chirp_mass, mass_ratio)``, each ``(n,)``."""
+    log_mc = np.log(chirp_mass)
+    eta = mass_ratio / (1.0 + mass_ratio) ** 2
+    log_total = log_mc - 0.6 * np.log(eta)
+    return MassTerms(
+        log_mc=log_mc,
+        eta=eta,
+        log_c=(log_total + _LOG_PI_MSUN) * (1.0 / 3.0),
+        eta_powers=eta[:, None] ** _CUBIC,
+        f_isco=_ISCO * np.exp(-log_total),
+    )
+
+
+def _overlap_parts(b: _Binned, terms: MassTerms, tc: Array) -> tuple[Array, Array, Array | float]:
+    """``(Re z0, Im z0, <h0|h0>)`` of one detector's bins (see ``unit_overlaps``)."""
+    n = terms.eta.size
+    poly, log_poly, powers = b.tables
+    log_c, eta, eta_powers, f_isco = terms.log_c, terms.eta, terms.eta_powers, terms.f_isco
+    coeffs = np.empty((n, powers.size + 2))
+    body = coeffs[:, : powers.size]
+    np.exp(log_c[:, None] * powers - np.log(eta * (128.0 / 3.0))[:, None], out=body)
+    body *= eta_powers @ poly + log_c[:, None] * (eta_powers @ log_poly)
+    coeffs[:, -2] = 2.0 * np.pi * (tc - b.tc0)
+    coeffs[:, -1] = 1.0
+    x = (coeffs @ b.design).astype(np.float32)
+    cos = np.cos(x).astype(float)
+    sin = np.sin(x).astype(float)
+    f_all = b.data.frequencies
+    if f_isco.min() >= f_all[-1]:
+        c_w = cos @ b.edge_weights
+        s_w = sin @ b.edge_weights
+        return c_w[:, 0] - s_w[:, 1], c_w[:, 1] + s_w[:, 0], float(b.cumulative_norm[-1])
+    # Bins below every sample's cut bin from cached edge weights; bins between
+    # the lowest and the highest cut removed again where a sample cuts lower;
+    # each sample's cut bin up to its ISCO from running sums.
+    n_keep = f_all.searchsorted(f_isco, side="right")
+    cut = np.maximum(b.first.searchsorted(n_keep, side="right") - 1, 0)
+    c_lo, c_hi = int(cut.min()), int(cut.max())
+    weights = b.cut_weights(c_hi)
+    c_w = cos @ weights
+    s_w = sin @ weights
+    r = cos[:, c_lo : c_hi + 2] + 1j * sin[:, c_lo : c_hi + 2]
+    r0 = 0.5 * (r[:, :-1] + r[:, 1:])
+    r1 = (r[:, 1:] - r[:, :-1]) * b.inverse_widths[c_lo : c_hi + 1]
+    local = cut - c_lo
+    rows = np.arange(n)
+    lo_k = b.first[cut]
+    p0 = b.c0[n_keep] - b.c0[lo_k]
+    p1 = b.c1[n_keep] - b.c1[lo_k] - b.centers[cut] * p0
+    extra = p0 * r0[rows, local] + p1 * r1[rows, local]
+    if c_hi > c_lo:
+        terms_ = b.a0[c_lo:c_hi] * r0[:, :-1] + b.a1[c_lo:c_hi] * r1[:, :-1]
+        drop = np.arange(c_hi - c_lo)[None, :] >= local[:, None]
+        extra -= np.sum(np.where(drop, terms_, 0.0), axis=1)
+    norm = np.where(n_keep > 0, b.cumulative_norm[np.maximum(n_keep - 1, 0)], 0.0)
+    return c_w[:, 0] - s_w[:, 1] + extra.real, c_w[:, 1] + s_w[:, 0] + extra.imag, norm
 
 
 @dataclass
@@ -255,62 +325,28 @@ class RelativeBinningLikelihood:
         tc = np.asarray(params["coalescence_time"], dtype=float)
         if mc.ndim != 1:
             return self._general(params)
-        log_mc = np.log(mc)
-        eta = q / (1.0 + q) ** 2
-        log_eta = np.log(eta)
-        log_total = log_mc - 0.6 * log_eta
-        amp = _AMPLITUDE * np.exp((5.0 / 6.0) * log_mc) / dist
-        f_isco = _ISCO * np.exp(-log_total)
-        log_c = (log_total + _LOG_PI_MSUN) * (1.0 / 3.0)
-        eta_powers = eta[:, None] ** _CUBIC
+        terms = mass_terms(mc, q)
+        amp = _AMPLITUDE * np.exp((5.0 / 6.0) * terms.log_mc) / dist
         total = np.zeros(mc.size)
         for b in self._bins:
-            poly, log_poly, powers = b.tables
-            coeffs = np.empty((mc.size, powers.size + 2))
-            body = coeffs[:, : powers.size]
-            np.exp(log_c[:, None] * powers - np.log(eta * (128.0 / 3.0))[:, None], out=body)
-            body *= eta_powers @ poly + log_c[:, None] * (eta_powers @ log_poly)
-            coeffs[:, -2] = 2.0 * np.pi * (tc - b.tc0)
-            coeffs[:, -1] = 1.0
-            x = (coeffs @ b.design).astype(np.float32)
-            cos = np.cos(x).astype(float)
-            sin = np.sin(x).astype(float)
-            f_all = b.data.frequencies
-            if f_isco.min() >= f_all[-1]:
-                c_w = cos @ b.edge_weights
-                s_w = sin @ b.edge_weights
-                zr = c_w[:, 0] - s_w[:, 1]
-                zi = c_w[:, 1] + s_w[:, 0]
-                norm: Array | float = b.cumulative_norm[-1]
-            else:
-                # Bins below every sample's cut bin from cached edge weights; bins between
-                # the lowest and the highest cut removed again where a sample cuts lower;
-                # each sample's cut bin up to its ISCO from running sums.
-                n_keep = f_all.searchsorted(f_isco, side="right")
-                cut = np.maximum(b.first.searchsorted(n_keep, side="right") - 1, 0)
-                c_lo, c_hi = int(cut.min()), int(cut.max())
-                weights = b.cut_weights(c_hi)
-                c_w = cos @ weights
-                s_w = sin @ weights
-                r = cos[:, c_lo : c_hi + 2] + 1j * sin[:, c_lo : c_hi + 2]
-                r0 = 0.5 * (r[:, :-1] + r[:, 1:])
-                r1 = (r[:, 1:] - r[:, :-1]) * b.inverse_widths[c_lo : c_hi + 1]
-                local = cut - c_lo
-                rows = np.arange(mc.size)
-                lo_k = b.first[cut]
-                p0 = b.c0[n_keep] - b.c0[lo_k]
-                p1 = b.c1[n_keep] - b.c1[lo_k] - b.centers[cut] * p0
-                extra = p0 * r0[rows, local] + p1 * r1[rows, local]
-                if c_hi > c_lo:
-                    terms = b.a0[c_lo:c_hi] * r0[:, :-1] + b.a1[c_lo:c_hi] * r1[:, :-1]
-                    drop = np.arange(c_hi - c_lo)[None, :] >= local[:, None]
-                    extra -= np.sum(np.where(drop, terms, 0.0), axis=1)
-                zr = c_w[:, 0] - s_w[:, 1] + extra.real
-                zi = c_w[:, 1] + s_w[:, 0] + extra.imag
-                norm = np.where(n_keep > 0, b.cumulative_norm[np.maximum(n_keep - 1, 0)], 0.0)
+            zr, zi, norm = _overlap_parts(b, terms, tc)
             absz = amp * np.hypot(zr, zi)
             total += absz + np.log(i0e(absz)) - 0.5 * amp**2 * norm
         return total
+
+    def unit_overlaps(
+        self, terms: MassTerms, times: Sequence[Array]
+    ) -> list[tuple[Array, Array, Array | float]]:
+        """Per detector, the overlap with the unit-amplitude model: ``(Re z0, Im z0, <h0|h0>)``.
+
+        ``z0 = 4 df sum d f^{-7/6} exp(i Psi) / S`` with the model's phase ``Psi``
+        (PN series, time shift to ``times[i]`` and the -pi/4), cut at the ISCO
+        frequency, and ``<h0|h0> = 4 df sum f^{-7/3} / S`` up to it. Multiply
+        ``z0`` by the amplitude (and, for a network, the conjugate antenna
+        factor) to get the overlap; ``times[i]`` is detector ``i``'s coalescence
+        time measured from ``reference_time``, s.
+        """
+        return [_overlap_parts(b, terms, t) for b, t in zip(self._bins, times, strict=True)]
 
     def _general(self, params: Params) -> Array:
         z, hh = self.overlaps(params)

@@ -16,14 +16,17 @@ import scipy.fft
 from numpy.typing import NDArray
 
 from .data import NoiseSpectrum, StrainSegment
+from .network_model import SiteGeometry, antenna_factor
 from .spectrum import interpolate_psd
 from .waveform import taylorf2, time_to_coalescence
 
 __all__ = [
     "Injection",
+    "NetworkInjection",
     "analytic_design_psd",
     "design_spectrum",
     "injection_strain",
+    "simulate_network",
     "simulate_segment",
 ]
 
@@ -143,3 +146,83 @@ def simulate_segment(
         source="simulated",
         detector=detector,
     )
+
+
+@dataclass(frozen=True)
+class NetworkInjection:
+    """True parameters of a simulated signal seen by a network (detector-frame masses).
+
+    Angles in radians; ``coalescence_time`` is the GPS time at the geocentre, s;
+    ``luminosity_distance`` in Mpc.
+    """
+
+    chirp_mass: float
+    mass_ratio: float
+    luminosity_distance: float
+    inclination: float
+    polarization_angle: float
+    right_ascension: float
+    declination: float
+    coalescence_time: float
+    phase: float = 0.0
+
+
+def simulate_network(
+    injection: NetworkInjection,
+    sites: list[SiteGeometry],
+    spectra: list[NoiseSpectrum],
+    *,
+    gmst: float,
+    duration: float,
+    sample_rate: float,
+    start_time: float,
+    rng: np.random.Generator,
+    f_start: float = 10.0,
+) -> list[StrainSegment]:
+    """One segment per site: independent noise plus the same signal, delayed and projected.
+
+    Site ``I`` receives ``C_I h(t_c + dt_I)`` with the antenna factor ``C_I`` and
+    delay ``dt_I`` of :mod:`estimator.network_model` (same conventions as the
+    likelihood), ``h`` the TaylorF2 model at distance ``luminosity_distance``.
+    """
+    n = round(duration * sample_rate)
+    dt = 1.0 / sample_rate
+    ra = np.array([injection.right_ascension])
+    dec = np.array([injection.declination])
+    segments = []
+    for site, spectrum in zip(sites, spectra, strict=True):
+        noise = simulate_segment(
+            spectrum,
+            duration=duration,
+            sample_rate=sample_rate,
+            start_time=start_time,
+            rng=rng,
+            detector=site.name,
+        )
+        fp, fc = site.antenna_pattern(ra, dec, np.array([injection.polarization_angle]), gmst)
+        factor = antenna_factor(np.asarray(fp), np.asarray(fc), np.array([injection.inclination]))
+        arrival = injection.coalescence_time + float(np.asarray(site.time_delay(ra, dec, gmst))[0])
+        signal = injection_strain(
+            Injection(
+                injection.chirp_mass,
+                injection.mass_ratio,
+                injection.luminosity_distance,
+                arrival,
+                injection.phase,
+            ),
+            n_samples=n,
+            sample_rate=sample_rate,
+            start_time=start_time,
+            f_start=f_start,
+        )
+        strain = noise.strain + scipy.fft.irfft(signal * factor[0], n) / dt
+        segments.append(
+            StrainSegment(
+                strain=np.asarray(strain, dtype=float),
+                sample_rate=sample_rate,
+                start_time=start_time,
+                source="simulated",
+                detector=site.name,
+            )
+        )
+    return segments
