@@ -25,6 +25,7 @@ from .formatting import (
     format_uncertain,
     format_value,
 )
+from .report_network import network_context, plot_title, quality_title
 
 __all__ = [
     "FISHER_LABELS",
@@ -49,7 +50,9 @@ LABELS: Mapping[str, str] = {
     "source_total_mass": "Total mass", "redshift": "Redshift z",
     "luminosity_distance": "Luminosity distance", "effective_distance": "Effective distance",
     "orientation_factor": "Orientation factor", "coalescence_time": "Coalescence time (GPS)",
-    "snr": "Matched-filter SNR",
+    "snr": "Matched-filter SNR", "network_snr": "Network matched-filter SNR",
+    "inclination": "Inclination ι", "polarization_angle": "Polarisation angle ψ",
+    "right_ascension": "Right ascension α", "declination": "Declination δ",
 }
 #: Table groups: (title, note, parameter names).
 GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
@@ -60,9 +63,11 @@ GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
       "source_total_mass", "redshift")),
     ("Distance and time", "",
      ("luminosity_distance", "effective_distance", "orientation_factor", "coalescence_time")),
-    ("Signal strength", "", ("snr",)),
+    ("Sky position and orientation", "equatorial coordinates of the event's date",
+     ("right_ascension", "declination", "inclination", "polarization_angle")),
+    ("Signal strength", "", ("snr", "network_snr")),
 )
-UNITS: Mapping[str, str] = {"Msun": "M☉", "": "—"}
+UNITS: Mapping[str, str] = {"Msun": "M☉", "": "—", "deg": "°"}
 #: Heading of each data-quality check of summary.json's "quality".
 QUALITY_TITLES: Mapping[str, str] = {
     "residual_variance": "Noise level matches the spectrum",
@@ -119,7 +124,7 @@ def _headline(parameters: Mapping[str, Any], probabilities: Mapping[str, Any]) -
     return {
         "chirp_mass": pick("chirp_mass"), "distance": pick("luminosity_distance"),
         "m1": pick("source_primary_mass"), "m2": pick("source_secondary_mass"),
-        "snr": pick("snr"), "time": pick("coalescence_time"),
+        "snr": pick("snr") or pick("network_snr"), "time": pick("coalescence_time"),
         "ns_possible": None if p_secondary is None else format_percent(float(p_secondary)),
         "both_light": None if p_primary is None else format_percent(float(p_primary)),
     }
@@ -169,7 +174,8 @@ def _quality(raw: Mapping[str, Any] | None) -> list[dict[str, Any]] | None:
     for check in raw.get("checks", []):
         name, value = str(check.get("name", "")), check.get("value")
         rows.append({
-            "name": name, "title": QUALITY_TITLES.get(name, name.replace("_", " ")),
+            "name": name.replace(":", "-"),
+            "title": QUALITY_TITLES.get(name) or quality_title(name) or name.replace("_", " "),
             "passed": bool(check.get("passed", False)),
             "value": "n/a" if value is None else format_significant(float(value), 3),
             "threshold": str(check.get("threshold", "")),
@@ -260,7 +266,8 @@ def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
         msg = f"share_url {share_url[:40]!r} must be an absolute http(s) URL"
         raise ValueError(msg)
     keys = [k for k in PLOT_ORDER if k in images] + [k for k in images if k not in PLOT_ORDER]
-    plots = [{"key": k, "src": _checked_link(images[k], f"image {k!r}")} for k in keys]
+    plots = [{"key": k.replace(":", "-"), "src": _checked_link(images[k], f"image {k!r}"),
+              "text": plot_title(k)} for k in keys]
     software = summary.get("software", {})
     return {
         "label": str(summary["label"]),
@@ -277,6 +284,7 @@ def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
         "inputs": _inputs(summary.get("inputs", {})), "seed": format_value(settings.get("seed")),
         "software": f"{software.get('name', 'chirpcast')} {software.get('version', '')}".strip(),
         "schema_version": summary.get("schema_version"),
+        **network_context(summary),
     }
 
 

@@ -274,8 +274,10 @@ def test_images_downloads_and_share_link(images: dict[str, str], tmp_path: Path)
     doc = parse(html)
     assert len(doc.images) == 5
     assert html.count("<b>Look for:</b>") == 5
-    extra = render_report(make_summary(), images={"sky_map": images["corner"]})
-    assert "<h3>Sky map</h3>" in extra
+    extra = render_report(make_summary(), images={"extra_view": images["corner"]})
+    assert "<h3>Extra view</h3>" in extra  # an unknown figure is titled from its key
+    sky = render_report(make_summary(), images={"sky_map": images["corner"]})
+    assert "<h3>Sky position</h3>" in sky
     prefix = "data:image/png;base64,"
     assert all(src.startswith(prefix) for src in doc.images)
     assert base64.b64decode(doc.images[0][len(prefix):]) == (tmp_path / "tiny.png").read_bytes()

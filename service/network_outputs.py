@@ -1,0 +1,187 @@
+"""A finished network analysis to its output folder: summary, samples, plots and report.
+
+Written like :func:`service.pipeline.write_outputs`: into a temporary sibling
+folder first, moved into place in one rename, so a folder is complete or absent.
+The report is the one-detector report's template with the network's sections
+(sky map, per-detector data and SNRs) added.
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+import tempfile
+import time
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from estimator import plots
+from estimator.network_analysis import NetworkResult
+from estimator.network_products import detector_snrs, detector_views
+from estimator.network_summary import build_network_summary, derive_network_samples
+from estimator.sky_plot import plot_sky_map
+from estimator.skymap import sky_map_from_samples
+
+from .pipeline import (
+    Progress,
+    _corner,
+    _plot_pool,
+    _replace_folder,
+    _with_unit,
+    check_output_folder,
+)
+from .report import image_data_uri, render_report
+
+__all__ = ["NETWORK_SAMPLE_COLUMNS", "network_output_files", "write_network_outputs"]
+
+#: Columns of a network analysis's samples.csv, in order (angles in degrees).
+NETWORK_SAMPLE_COLUMNS = (
+    "chirp_mass",
+    "mass_ratio",
+    "primary_mass",
+    "secondary_mass",
+    "total_mass",
+    "luminosity_distance",
+    "inclination",
+    "polarization_angle",
+    "right_ascension",
+    "declination",
+    "coalescence_time",
+    "redshift",
+    "source_chirp_mass",
+    "source_primary_mass",
+    "source_secondary_mass",
+    "source_total_mass",
+    "network_snr",
+    "log_likelihood",
+)
+
+
+def _plot_files(names: list[str]) -> dict[str, str]:
+    files = {"sky_map": "sky_map.png", "corner": "corner.png"}
+    files.update({f"whitened:{n}": f"whitened-{n}.png" for n in names})
+    files["traces"] = "traces.png"
+    return files
+
+
+def network_output_files(names: list[str]) -> set[str]:
+    """Every file the output folder of a network of detectors ``names`` holds."""
+    return {"summary.json", "samples.csv", "report.html", *_plot_files(names).values()}
+
+
+def _make_plots(
+    result: NetworkResult,
+    derived: Mapping[str, np.ndarray],
+    views: list[Any],
+    skymap: Any,
+    folder: Path,
+) -> dict[str, str]:
+    files = _plot_files(result.names)
+    labels = {
+        "chirp_mass": r"$\mathcal{M}$ [M$_\odot$]",
+        "mass_ratio": "$q$",
+        "luminosity_distance": "$D_L$ [Mpc]",
+        "inclination": r"$\iota$ [deg]",
+        "right_ascension": r"$\alpha$ [deg]",
+        "declination": r"$\delta$ [deg]",
+    }
+    corner_samples = {k: derived[k] for k in labels}
+    pool = _plot_pool()
+    args = (corner_samples, folder / files["corner"], labels)
+    pending = pool.submit(_corner, *args) if pool is not None else None
+    plot_sky_map(skymap, folder / files["sky_map"], title="Sky position of the source")
+    for view in views:
+        data = view.data
+        window = (max(-0.6, float(view.times[0])), 0.1)
+        plots.whitened_plot(
+            view.times,
+            view.whitened_data,
+            view.whitened_model,
+            folder / files[f"whitened:{view.name}"],
+            window=window,
+            band=(data.f_low, data.f_high),
+            title=f"{view.name}: whitened data and best-fit model",
+        )
+    plots.trace_plot(
+        result.chain.chain,
+        result.chain.names,
+        folder / files["traces"],
+        labels={
+            **{k: _with_unit(k) for k in result.chain.names},
+            "cos_inclination": "cos ι",
+            "polarization_angle": "ψ [rad]",
+            "right_ascension": "α [rad]",
+            "sin_declination": "sin δ",
+            "arrival_time": f"t({result.coordinates.f_ref:.0f} Hz) − trigger [s]",
+        },
+        burn_in=result.chain.burn_in,
+    )
+    if pending is not None:
+        pending.result(timeout=300)
+    else:
+        _corner(*args)
+    return files
+
+
+def write_network_outputs(
+    result: NetworkResult,
+    out_dir: Path,
+    *,
+    inputs: Mapping[str, Any],
+    label: str,
+    progress: Progress | None = None,
+) -> dict[str, Any]:
+    """Write summary, samples, plots and report of a network analysis (all or nothing)."""
+    clock = time.perf_counter()
+    if progress is not None:
+        progress("report", 0.0, 0.82)
+    out_dir = Path(out_dir)
+    expected = network_output_files(result.names)
+    check_output_folder(out_dir, expected)
+    derived = derive_network_samples(result)
+    views = detector_views(result)
+    snrs = detector_snrs(result, seed=result.seed)
+    skymap = sky_map_from_samples(
+        result.samples["right_ascension"],
+        result.samples["declination"],
+        rng=np.random.default_rng([result.seed, 2]),
+    )
+    summary = build_network_summary(
+        result, derived, views=views, snrs=snrs, skymap=skymap, inputs=inputs, label=label
+    )
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=out_dir.parent))
+    tmp.chmod(0o755)
+    try:
+        table = np.column_stack([derived[c] for c in NETWORK_SAMPLE_COLUMNS])
+        fmt = ["%.10g"] * len(NETWORK_SAMPLE_COLUMNS)
+        fmt[NETWORK_SAMPLE_COLUMNS.index("coalescence_time")] = "%.6f"
+        np.savetxt(
+            tmp / "samples.csv",
+            table,
+            delimiter=",",
+            header=",".join(NETWORK_SAMPLE_COLUMNS),
+            comments="",
+            fmt=fmt,
+        )
+        files = _make_plots(result, derived, views, skymap, tmp)
+        summary["diagnostics"]["timings_s"]["report"] = round(time.perf_counter() - clock, 3)
+        (tmp / "summary.json").write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
+        images = {key: image_data_uri(tmp / name) for key, name in files.items()}
+        downloads = {
+            "samples.csv": "samples.csv",
+            "summary.json": "summary.json",
+            **{name: name for name in files.values()},
+        }
+        html = render_report(summary, images=images, downloads=downloads)
+        (tmp / "report.html").write_text(html, encoding="utf-8")
+        _replace_folder(tmp, out_dir)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    if progress is not None:
+        progress("done", 1.0, 1.0)
+    return summary
