@@ -11,6 +11,9 @@ from __future__ import annotations
 
 import hashlib
 import io
+import json
+import re
+import tomllib
 import zipfile
 from pathlib import Path
 from typing import NoReturn
@@ -20,9 +23,17 @@ from numpy.typing import NDArray
 
 from .data import NoiseSpectrum, StrainSegment
 from .errors import InputError
+from .sites import Site, site_from_mapping
 from .tables import parse_table
 
-__all__ = ["MAX_CALIBRATED_STRAIN", "RATE_SNAP_TOLERANCE", "read_psd", "read_strain", "sha256_file"]
+__all__ = [
+    "MAX_CALIBRATED_STRAIN",
+    "RATE_SNAP_TOLERANCE",
+    "read_psd",
+    "read_site_file",
+    "read_strain",
+    "sha256_file",
+]
 
 #: Largest |h| accepted as calibrated strain; detector noise is near 1e-21 (common practice).
 MAX_CALIBRATED_STRAIN = 1e-15
@@ -291,3 +302,75 @@ def read_psd(path: str | Path, *, asd: bool = False) -> NoiseSpectrum:
     return NoiseSpectrum(
         frequencies=freq.copy(), psd=density**2 if asd else density.copy(), source=name, notes=notes
     )
+
+
+def _unique_keys(pairs: list[tuple[str, object]]) -> dict[str, object]:
+    """JSON object hook: a repeated key is an error rather than a silent overwrite."""
+    table: dict[str, object] = {}
+    for key, value in pairs:
+        if key in table:
+            msg = f"the key {key!r} appears twice in one object; give each site and field once"
+            raise ValueError(msg)
+        table[key] = value
+    return table
+
+
+def read_site_file(path: str | Path) -> dict[str, Site]:
+    """Read detector sites from a site file (TOML or JSON, chosen by the suffix).
+
+    Layout (our own): one table per site under ``site``: ``[site.NAME]`` in TOML
+    (TOML 1.0, read by :mod:`tomllib`), ``{"site": {"NAME": {...}}}`` in JSON (RFC 8259),
+    each with the fields of :func:`estimator.sites.site_from_mapping` (``latitude_deg``,
+    ``longitude_deg``, ``elevation_m``, ``arm1_azimuth_deg``, ``arm2_azimuth_deg`` and the
+    optional ``arm1_tilt_deg``, ``arm2_tilt_deg``).
+
+    Returns
+    -------
+    dict
+        The sites by name, in file order.
+
+    Raises
+    ------
+    InputError
+        ``field="sites"`` for a suffix other than ``.toml``/``.json``, an unreadable,
+        empty or unparsable file (with the parser's line and column), another top-level
+        key or no sites; ``field="site:NAME:FIELD"`` for a bad site (see
+        :func:`~estimator.sites.site_from_mapping`).
+    """
+    p = Path(path)
+    name, suffix = p.name, p.suffix.lower()
+    if suffix not in (".toml", ".json"):
+        _fail(f"site-file suffix {p.suffix!r} is not known; use .toml or .json", name, "sites")
+    raw = _read_bytes(p, "sites")
+    try:
+        text = raw.decode("utf-8")
+        if suffix == ".toml":
+            document: object = tomllib.loads(text)
+        else:
+            document = json.loads(text, object_pairs_hook=_unique_keys)
+    except UnicodeDecodeError as err:
+        msg = f"byte {err.start} is not UTF-8 text; save the file as UTF-8"
+        raise InputError(msg, source=name, field="sites") from err
+    except tomllib.TOMLDecodeError as err:
+        found = re.search(r"line (\d+), column (\d+)", str(err))
+        where = f"line {found[1]}, column {found[2]}" if found else None
+        msg = f"cannot parse the TOML ({err}); correct the syntax there"
+        raise InputError(msg, source=name, where=where, field="sites") from err
+    except json.JSONDecodeError as err:
+        msg = f"cannot parse the JSON ({err.msg}); correct the syntax there"
+        where = f"line {err.lineno}, column {err.colno}"
+        raise InputError(msg, source=name, where=where, field="sites") from err
+    except ValueError as err:  # a repeated JSON key
+        raise InputError(str(err), source=name, field="sites") from err
+    layout = 'one table per site: [site.NAME] in TOML, {"site": {"NAME": {...}}} in JSON'
+    if not isinstance(document, dict):
+        _fail(f"found a JSON {type(document).__name__}, expected {layout}", name, "sites")
+    others = ", ".join(repr(str(k)) for k in document if k != "site")
+    if others:
+        _fail(f"unknown top-level key(s) {others}; expected only 'site', {layout}", name, "sites")
+    tables = document.get("site", {})
+    if not isinstance(tables, dict):
+        _fail(f"'site' holds a {type(tables).__name__}, expected {layout}", name, "sites")
+    if not tables:
+        _fail(f"no sites found; expected {layout}", name, "sites")
+    return {str(k): site_from_mapping(str(k), v, source=name) for k, v in tables.items()}

@@ -84,11 +84,7 @@ def detector_views(
     """Best-fit model and whitened series of every detector (module docstring)."""
     p = best_sample(result) if params is None else params
     arrays = {k: np.array([v]) for k, v in p.items()}
-    z, hh = result.exact.components(arrays)
-    # Components of the exact likelihood are those of the model at 1 Mpc when it is
-    # marginalised over distance: scale to the sample's distance.
-    if result.exact.marginal is not None:
-        z, hh = z / p["luminosity_distance"], hh / p["luminosity_distance"] ** 2
+    z, hh = result.exact.components(arrays)  # at the sample's distance
     phase = float(np.angle(np.sum(z[:, 0])))
     views = []
     for i, (site, data) in enumerate(zip(result.sites, result.data, strict=True)):
@@ -127,10 +123,7 @@ def detector_snrs(result: NetworkResult, draws: int = 400, seed: int = 0) -> dic
     n = result.samples["chirp_mass"].size
     pick = np.random.default_rng(seed).choice(n, min(draws, n), replace=False)
     p = {k: v[pick] for k, v in result.samples.items()}
-    z, hh = result.likelihood.components(p)
-    dist = p["luminosity_distance"]
-    if result.likelihood.marginal is not None:
-        z, hh = z / dist, hh / dist**2
+    z, hh = result.likelihood.components(p)  # at each sample's distance
     total = np.sum(z, axis=0)
     rotate = np.exp(-1j * np.angle(total))
     out = {"network_snr": np.abs(total) / np.sqrt(np.sum(hh, axis=0))}

@@ -69,9 +69,7 @@ def derive_network_samples(result: NetworkResult) -> dict[str, Array]:
     d_l = s["luminosity_distance"]
     z = redshift_from_distance(d_l)
     m1, m2 = component_masses(s["chirp_mass"], s["mass_ratio"])
-    zz, hh = result.likelihood.components(s)
-    if result.likelihood.marginal is not None:
-        zz, hh = zz / d_l, hh / d_l**2
+    zz, hh = result.likelihood.components(s)  # at each sample's distance
     out = {
         "chirp_mass": s["chirp_mass"],
         "mass_ratio": s["mass_ratio"],

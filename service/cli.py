@@ -1,8 +1,11 @@
 """The ``chirpcast`` command line.
 
-``chirpcast analyze`` runs the main job on a strain file, ``chirpcast simulate``
-makes a drill data set, ``chirpcast demo`` analyses the shipped demo event,
-``chirpcast serve`` runs the web service and ``chirpcast keys add`` makes an API key.
+``chirpcast analyze`` runs the main job on a strain file (or on a network of
+detectors, one ``--detector NAME=STRAIN[,psd=PATH]`` each: :mod:`service.network_args`),
+``chirpcast simulate`` makes a drill data set (``--network`` for several sites),
+``chirpcast sites`` lists the detector sites, ``chirpcast demo`` analyses the shipped
+demo event, ``chirpcast serve`` runs the web service and ``chirpcast keys add`` makes an
+API key.
 Exit codes: 0 success, 2 bad input (one clear line on stderr), 1 internal error.
 """
 
@@ -21,6 +24,14 @@ from estimator.analysis import AnalysisSettings
 from estimator.errors import InputError
 
 from .commands import COMMANDS, add_commands
+from .drill import add_simulate_parser
+from .network_args import (
+    add_detector_options,
+    add_sites_command,
+    network_request,
+    run_network_analyze,
+    run_sites,
+)
 
 __all__ = ["main"]
 
@@ -96,8 +107,10 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "strain",
         type=Path,
+        nargs="?",
         help="strain file: text/CSV (time, strain or strain), "
-        ".npy or .npz (strain, sample_rate, start_time)",
+        ".npy or .npz (strain, sample_rate, start_time); for several detectors "
+        "use --detector instead",
     )
     p.add_argument(
         "--psd",
@@ -166,6 +179,7 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, help="random seed (drawn and recorded when absent)")
     p.add_argument("--label", default="", help="a name for the report")
     p.add_argument("--out", type=Path, required=True, help="output folder")
+    add_detector_options(p)
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -187,42 +201,8 @@ def _parser() -> argparse.ArgumentParser:
     )
     demo.add_argument("--seed", type=int, default=None, help="random seed (the demo's own)")
 
-    sim = sub.add_parser(
-        "simulate", help="make a drill data set: coloured Gaussian noise plus an injected inspiral"
-    )
-    sim.add_argument("--out", type=Path, required=True, help="output folder")
-    sim.add_argument(
-        "--psd",
-        type=Path,
-        help="noise spectrum to colour the noise with "
-        "(default: an analytic design-sensitivity fit)",
-    )
-    sim.add_argument("--asd", action="store_true", help="--psd holds an amplitude spectrum")
-    sim.add_argument("--duration", type=float, default=16.0, help="segment length, s (16)")
-    sim.add_argument("--sample-rate", type=float, default=4096.0, help="Hz (4096)")
-    sim.add_argument("--start-time", type=float, default=1_000_000_000.0, help="GPS s")
-    sim.add_argument(
-        "--coalescence-time", type=float, help="GPS s (default: 2 s before the segment ends)"
-    )
-    sim.add_argument("--chirp-mass", type=float, default=20.0, help="detector frame, Msun")
-    sim.add_argument("--mass-ratio", type=float, default=0.7, help="m2/m1 <= 1")
-    sim.add_argument("--distance", type=float, default=500.0, help="luminosity distance, Mpc")
-    sim.add_argument(
-        "--orientation-factor",
-        type=float,
-        default=0.7,
-        help="w in (0, 1]: effective distance = distance / w",
-    )
-    sim.add_argument("--snr", type=float, help="rescale the distance to this optimal SNR")
-    sim.add_argument("--phase", type=float, default=1.0, help="coalescence phase, rad")
-    sim.add_argument("--f-low", type=float, default=20.0, help="band for --snr, Hz (20)")
-    sim.add_argument(
-        "--format",
-        choices=("csv", "npz", "npy"),
-        default="csv",
-        help="strain file format (csv: two columns, GPS time and strain)",
-    )
-    sim.add_argument("--seed", type=int, default=1, help="noise seed (1)")
+    add_simulate_parser(sub)
+    add_sites_command(sub)
     add_commands(sub, _Parser)
     return parser
 
@@ -272,6 +252,14 @@ def _print_result(summary: dict[str, Any], out: Path) -> None:
 def _run_analyze(args: argparse.Namespace) -> int:
     from .pipeline import AnalysisRequest, analyze_files
 
+    network = network_request(args, _settings(args))
+    if network is not None:
+        bar = _ProgressBar(not args.quiet)
+        try:
+            run_network_analyze(network, args.out, progress=bar)
+        finally:
+            bar.close()
+        return EXIT_OK
     request = AnalysisRequest(
         strain_path=args.strain,
         psd_path=args.psd,
@@ -312,8 +300,9 @@ def _run_demo(args: argparse.Namespace) -> int:
 
 def _run_simulate(args: argparse.Namespace) -> int:
     from .drill import simulate_files
+    from .network_drill import simulate_network_files
 
-    written = simulate_files(args)
+    written = simulate_network_files(args) if args.network else simulate_files(args)
     sys.stdout.write("wrote " + ", ".join(str(p) for p in written["files"]) + "\n")
     sys.stdout.write("analyse it with:\n  " + written["command"] + "\n")
     return EXIT_OK
@@ -330,6 +319,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         "analyze": _run_analyze,
         "demo": _run_demo,
         "simulate": _run_simulate,
+        "sites": run_sites,
         **COMMANDS,
     }
     try:

@@ -1,7 +1,13 @@
-"""Request and response models of the REST API (they make up its OpenAPI schema)."""
+"""Request and response models of the REST API (they make up its OpenAPI schema).
+
+Also the API's names for the inputs an error points at (:func:`api_field`): the
+multipart field names of ``POST /api/v1/analyses`` (``strain``, ``psd``, ``sites``,
+``strain.NAME``, ``psd.NAME``) and the ``settings`` keys.
+"""
 
 from __future__ import annotations
 
+import re
 from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
@@ -11,6 +17,7 @@ __all__ = [
     "AnalysisList",
     "AnalysisPublic",
     "ApiModel",
+    "DetectorPublic",
     "ErrorBody",
     "ErrorInfo",
     "FisherParameter",
@@ -19,6 +26,7 @@ __all__ = [
     "ProgressEvent",
     "ShareLink",
     "Submitted",
+    "api_field",
 ]
 
 State = Literal["queued", "running", "done", "failed", "cancelled"]
@@ -107,6 +115,14 @@ class FisherPreview(ApiModel):
     )
 
 
+class DetectorPublic(ApiModel):
+    """One detector of an analysis: its site name and the files uploaded for it."""
+
+    name: str | None = Field(description="site name (null for a one-detector analysis)")
+    strain: str | None = Field(description="file name of the strain upload")
+    psd: str | None = Field(description="file name of the noise spectrum (null: estimated)")
+
+
 class AnalysisPublic(ApiModel):
     """An analysis as the API shows it."""
 
@@ -128,6 +144,14 @@ class AnalysisPublic(ApiModel):
     status_url: str
     report_url: str | None = Field(None, description="share link (only in the submit answer)")
     files: dict[str, str] = Field(default_factory=dict, description="download URLs, when done")
+    detectors: list[DetectorPublic] = Field(
+        default_factory=list,
+        description="the detectors in submission order: one unnamed entry for a"
+        " one-detector analysis, one per site for a network",
+    )
+    sites: str | None = Field(
+        None, description="the uploaded site file's name (null: the shipped invented sites)"
+    )
 
 
 class AnalysisList(ApiModel):
@@ -162,3 +186,25 @@ class Health(ApiModel):
     version: str
     queued: int
     running: int
+
+
+#: ``detector:NAME[:PART]`` of :mod:`service.network_pipeline` (PART: strain, psd, ...).
+_DETECTOR_FIELD = re.compile(r"detector:(?P<name>[^:]+)(?::(?P<part>[^:]+))?")
+
+
+def api_field(field: str | None) -> str | None:
+    """The API's name for the input a library error's ``field`` points at.
+
+    ``detector:NAME:psd`` is the form field ``psd.NAME``; ``detector:NAME`` and
+    ``detector:NAME:strain`` are ``strain.NAME`` (the upload that names the detector);
+    ``site:NAME:KEY`` (a site file's entry) is ``sites``; anything else is unchanged.
+    """
+    if field is None:
+        return None
+    found = _DETECTOR_FIELD.fullmatch(field)
+    if found is not None:
+        part = "psd" if found["part"] == "psd" else "strain"
+        return f"{part}.{found['name']}"
+    if field.startswith("site:"):
+        return "sites"
+    return field

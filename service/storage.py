@@ -2,9 +2,12 @@
 
 ``data_dir/chirpcast.sqlite3`` holds analyses, API keys (sha256 of the key) and
 share-token hashes; ``data_dir/analyses/<id>/inputs/`` the uploaded files and
-``data_dir/analyses/<id>/output/`` the pipeline's finished output folder.
-Every call opens its own short-lived connection, so the store may be used from
-threads and processes alike.
+``data_dir/analyses/<id>/output/`` the pipeline's finished output folder. A network
+keeps its files in ``inputs/detectors/<NAME>/{strain,psd}/`` and ``inputs/sites/``;
+its stored ``request`` (JSON) says ``"kind": "network"`` and lists the detectors and the
+site file, so both kinds share one schema (older databases need no change). Every call
+opens its own short-lived connection, so the store may be used from threads and
+processes alike.
 """
 
 from __future__ import annotations
@@ -23,10 +26,12 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-__all__ = ["FINAL_STATES", "STATES", "Analysis", "Store", "hash_secret"]
+__all__ = ["FINAL_STATES", "NETWORK", "STATES", "Analysis", "Store", "hash_secret"]
 
 STATES = ("queued", "running", "done", "failed", "cancelled")
 FINAL_STATES = frozenset({"done", "failed", "cancelled"})
+#: ``request["kind"]`` of a several-detector analysis (a one-detector request has no kind).
+NETWORK = "network"
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS analyses (
@@ -104,6 +109,29 @@ class Analysis:
         preview = values.pop("preview", None)
         values["preview"] = json.loads(preview) if preview else None
         return cls(**values)
+
+    @property
+    def network(self) -> bool:
+        """Whether this is a several-detector analysis."""
+        return self.request.get("kind") == NETWORK
+
+    @property
+    def detectors(self) -> list[dict[str, str | None]]:
+        """``[{"name", "strain", "psd"}]``: each detector's site name and file names.
+
+        A one-detector analysis gives one entry whose ``name`` is ``None``; ``psd`` is
+        ``None`` where the spectrum is estimated from the strain.
+        """
+        if not self.network:
+            return [{"name": None, "strain": _file_name(self.request.get("strain")),
+                     "psd": _file_name(self.request.get("psd"))}]
+        return [{"name": str(d["name"]), "strain": _file_name(d.get("strain")),
+                 "psd": _file_name(d.get("psd"))} for d in self.request.get("detectors", [])]
+
+    @property
+    def sites_file(self) -> str | None:
+        """The uploaded site file's name (``None``: the shipped sites, or one detector)."""
+        return _file_name(self.request.get("sites"))
 
 
 class Store:
@@ -297,6 +325,11 @@ class Store:
         """The share token of one analysis and token generation: HMAC-SHA256, 192 bits."""
         mac = hmac.new(self.share_secret(), f"{analysis_id}:{generation}".encode(), "sha256")
         return _urlsafe(mac.digest()[:24])
+
+
+def _file_name(stored: object) -> str | None:
+    """The file name of a stored relative path (``inputs/strain/x.csv`` -> ``x.csv``)."""
+    return Path(str(stored)).name if stored else None
 
 
 def _urlsafe(raw: bytes) -> str:

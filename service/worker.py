@@ -1,7 +1,9 @@
 """Worker processes: claim queued analyses and run them, away from the web event loop.
 
 A worker claims one analysis at a time (:func:`service.jobs.claim`), runs
-:func:`service.pipeline.analyze_files` into ``analyses/<id>/attempt-<n>/``,
+:func:`service.pipeline.analyze_files` (one detector) or
+:func:`service.network_pipeline.analyze_network_files` (a network; the stored
+request's ``"kind"`` says which) into ``analyses/<id>/attempt-<n>/``,
 sends a heartbeat every ``heartbeat_seconds`` from a helper thread, writes stage
 and progress at most every 0.5 s, stores the Fisher-matrix first look as soon as
 the analysis hands it over (before sampling), and stops early when the analysis is cancelled
@@ -22,19 +24,23 @@ import time
 import uuid
 from multiprocessing.context import SpawnProcess
 from multiprocessing.synchronize import Event
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from estimator.errors import ConvergenceError, InputError
 from estimator.settings import AnalysisSettings
 
 from . import jobs
+from .schemas import api_field
 from .settings import ServiceSettings
-from .storage import Store
+from .storage import NETWORK, Store
 
 if TYPE_CHECKING:
-    from estimator.fisher import FisherEstimate
+    from .network_pipeline import NetworkRequest
+    from .pipeline import AnalysisRequest
 
-__all__ = ["WorkerPool", "build_request", "run_one_job", "worker_main"]
+__all__ = ["WorkerPool", "build_request", "network_request", "request_from_json", "run_one_job",
+           "worker_main"]  # fmt: skip
 
 log = logging.getLogger(__name__)
 
@@ -49,21 +55,53 @@ class _Stop(Exception):
     """The analysis was cancelled or its claim lost: stop without touching its state."""
 
 
-def build_request(store: Store, analysis_id: str, request: dict[str, Any]) -> Any:
-    """The pipeline's ``AnalysisRequest`` for a stored submission."""
+def build_request(store: Store, analysis_id: str,
+                  request: dict[str, Any]) -> AnalysisRequest | NetworkRequest:
+    """The pipeline's request for a stored submission (see :func:`request_from_json`)."""
+    return request_from_json(store.inputs_dir(analysis_id), request)
+
+
+def _stored(inputs_dir: Path, stored: Any) -> Path:
+    """A stored path (``inputs/...``) taken relative to ``inputs_dir``."""
+    return inputs_dir / Path(str(stored)).relative_to("inputs")
+
+
+def _common(request: dict[str, Any]) -> dict[str, Any]:
+    return {"asd": bool(request.get("asd", False)), "sample_rate": request.get("sample_rate"),
+            "start_time": request.get("start_time")}
+
+
+def network_request(inputs_dir: Path, request: dict[str, Any]) -> NetworkRequest:
+    """The ``NetworkRequest`` of a stored network submission (``"kind": "network"``)."""
+    from .network_pipeline import DetectorFiles, NetworkRequest
+
+    detectors = tuple(
+        DetectorFiles(name=str(d["name"]), strain_path=_stored(inputs_dir, d["strain"]),
+                      psd_path=_stored(inputs_dir, d["psd"]) if d.get("psd") else None,
+                      **_common(request))
+        for d in request["detectors"])
+    sites = request.get("sites")
+    return NetworkRequest(detectors=detectors, settings=AnalysisSettings(**request["settings"]),
+                          sites_path=_stored(inputs_dir, sites) if sites else None,
+                          label=str(request.get("label") or ""))
+
+
+def request_from_json(inputs_dir: Path,
+                      request: dict[str, Any]) -> AnalysisRequest | NetworkRequest:
+    """The pipeline's request for a stored one: ``AnalysisRequest`` or ``NetworkRequest``.
+
+    The stored paths (``inputs/...``) are taken relative to ``inputs_dir``: the analysis'
+    input folder, or the upload's scratch folder before it is committed.
+    """
+    if request.get("kind") == NETWORK:
+        return network_request(inputs_dir, request)
     from .pipeline import AnalysisRequest
 
-    folder = store.analysis_dir(analysis_id)
-    options = dict(request["settings"])
-    return AnalysisRequest(
-        strain_path=folder / request["strain"],
-        psd_path=folder / request["psd"] if request.get("psd") else None,
-        asd=bool(request.get("asd", False)),
-        sample_rate=request.get("sample_rate"),
-        start_time=request.get("start_time"),
-        label=str(request.get("label") or ""),
-        settings=AnalysisSettings(**options),
-    )
+    psd = request.get("psd")
+    return AnalysisRequest(strain_path=_stored(inputs_dir, request["strain"]),
+                           psd_path=_stored(inputs_dir, psd) if psd else None,
+                           label=str(request.get("label") or ""),
+                           settings=AnalysisSettings(**request["settings"]), **_common(request))
 
 
 class _Reporter:
@@ -105,18 +143,33 @@ class _Reporter:
                 self.lost.set()
                 raise _Stop
 
-    def preview(self, estimate: FisherEstimate) -> None:
-        """Store the Fisher-matrix first look in the job's row (a failure is only logged)."""
+    def preview(self, estimate: Any) -> None:
+        """Store the Fisher-matrix first look in the job's row (a failure is only logged).
+
+        ``estimate`` is a ``FisherEstimate`` (or anything with ``to_dict()``, or a mapping).
+        """
         try:
-            if not jobs.record_preview(self.store, self.job, estimate.to_dict()):
+            data = estimate.to_dict() if hasattr(estimate, "to_dict") else dict(estimate)
+            if not jobs.record_preview(self.store, self.job, data):
                 self.lost.set()  # the next progress report stops the analysis
         except Exception:  # a first look must never stop the analysis itself
             log.exception("preview of %s could not be stored", self.job.id)
 
 
-def _run(store: Store, job: jobs.Claim, settings: ServiceSettings) -> None:
-    from .pipeline import analyze_files
+def _analyze(request: AnalysisRequest | NetworkRequest, out: Path, reporter: _Reporter) -> None:
+    """Run the pipeline the request is for (one detector or a network) into ``out``."""
+    from . import pipeline
 
+    if isinstance(request, pipeline.AnalysisRequest):
+        pipeline.analyze_files(request, out, progress=reporter, preview=reporter.preview)
+        return
+    from . import network_pipeline
+
+    network_pipeline.analyze_network_files(request, out, progress=reporter,
+                                           preview=reporter.preview)
+
+
+def _run(store: Store, job: jobs.Claim, settings: ServiceSettings) -> None:
     folder = store.analysis_dir(job.id)
     attempt_dir = folder / f"attempt-{job.attempt}"
     for left in [*folder.glob("attempt-*"), *folder.glob(".attempt-*")]:  # of dead workers
@@ -124,7 +177,7 @@ def _run(store: Store, job: jobs.Claim, settings: ServiceSettings) -> None:
     try:
         request = build_request(store, job.id, job.analysis.request)
         with _Reporter(store, job, settings.heartbeat_seconds) as reporter:
-            analyze_files(request, attempt_dir, progress=reporter, preview=reporter.preview)
+            _analyze(request, attempt_dir, reporter)
             if reporter.lost.is_set():
                 raise _Stop
         if not jobs.finish(store, job, attempt_dir):
@@ -132,7 +185,7 @@ def _run(store: Store, job: jobs.Claim, settings: ServiceSettings) -> None:
     except _Stop:
         log.info("analysis %s stopped (cancelled or claim lost)", job.id)
     except InputError as err:
-        jobs.fail(store, job, str(err), err.field)
+        jobs.fail(store, job, str(err), api_field(err.field))
     except ConvergenceError as err:
         jobs.fail(store, job, str(err), None)
     except (SystemExit, KeyboardInterrupt):

@@ -2,63 +2,43 @@
 
 from __future__ import annotations
 
-import hashlib
 import json
-import re
+import logging
 import secrets
 import shutil
 import sqlite3
 import time
 from collections.abc import AsyncIterator
-from pathlib import Path
-from typing import IO, Annotated, Any
+from typing import Annotated, Any
 
 import anyio
-from fastapi import APIRouter, File, Form, Header, Query, UploadFile
+from fastapi import APIRouter, Depends, File, Form, Header, Query, Request, UploadFile
 from fastapi.responses import FileResponse, Response, StreamingResponse
 from pydantic import ValidationError
-
-from estimator.errors import InputError
+from starlette.datastructures import FormData
 
 from .. import jobs
 from ..deps import ApiError, KeyDep, OptionalKeyDep, RateLimitedKeyDep, SettingsDep, StoreDep
 from ..pipeline import OUTPUT_FILES
-from ..schemas import AnalysisCreate, AnalysisList, AnalysisPublic, ShareLink, Submitted
-from ..settings import ServiceSettings
+from ..schemas import (
+    AnalysisCreate,
+    AnalysisList,
+    AnalysisPublic,
+    FisherPreview,
+    ShareLink,
+    Submitted,
+)
 from ..storage import FINAL_STATES, Analysis, Store, hash_secret
+from ..uploads import NETWORK_FORM_SCHEMA, form_layout, save_network, save_single
 
-__all__ = ["public_view", "router"]
+__all__ = ["output_file", "output_names", "public_view", "router"]
 
 router = APIRouter(prefix="/api/v1/analyses", tags=["analyses"])
 
-_CHUNK = 1 << 20
+log = logging.getLogger(__name__)
+
 _MEDIA = {".png": "image/png", ".csv": "text/csv", ".json": "application/json",
           ".html": "text/html"}
-
-
-def _safe_name(filename: str | None, default: str) -> str:
-    name = Path(filename or "").name
-    name = re.sub(r"[^A-Za-z0-9._-]", "_", name).lstrip(".")[:100]
-    return name or default
-
-
-def _save(upload: IO[bytes], target: Path, limit: int, field: str) -> dict[str, Any]:
-    """Copy an upload to ``target`` while hashing it; 413 past ``limit`` bytes, 422 if empty."""
-    digest, size = hashlib.sha256(), 0
-    target.parent.mkdir(parents=True, exist_ok=True)
-    with target.open("wb") as out:
-        while chunk := upload.read(_CHUNK):
-            size += len(chunk)
-            if size > limit:
-                msg = f"{field} file is larger than the limit of {limit} bytes; send a shorter"
-                msg += " segment or ask the operator to raise CHIRPCAST_MAX_UPLOAD_BYTES"
-                raise ApiError(413, "too_large", msg, field=field)
-            digest.update(chunk)
-            out.write(chunk)
-    if size == 0:
-        raise ApiError(422, "empty_file", f"the {field} file is empty; choose the file again",
-                       field=field)
-    return {"file": target.name, "sha256": digest.hexdigest(), "bytes": size}
 
 
 def _parse_settings(text: str) -> AnalysisCreate:
@@ -77,36 +57,31 @@ def _parse_settings(text: str) -> AnalysisCreate:
                        field=field) from err
 
 
-def _check_inputs(folder: Path, spec: AnalysisCreate, request: dict[str, Any],
-                  svc: ServiceSettings) -> None:
-    """Read the uploads once (in this worker thread) to answer 422 for bad input now."""
-    from estimator.io import read_psd, read_strain
-
-    try:
-        segment = read_strain(folder / request["strain"], sample_rate=spec.sample_rate,
-                              start_time=spec.start_time)
-    except InputError as err:
-        raise ApiError(422, "bad_input", str(err), field=err.field or "strain") from err
-    if request["psd"]:
-        try:
-            read_psd(folder / request["psd"], asd=spec.asd)
-        except InputError as err:
-            raise ApiError(422, "bad_input", str(err), field=err.field or "psd") from err
-    if segment.duration > svc.max_segment_seconds:
-        msg = f"strain segment is {segment.duration:.0f} s long, more than the limit of"
-        msg += f" {svc.max_segment_seconds:.0f} s; cut it around the trigger time"
-        raise ApiError(422, "segment_too_long", msg, field="strain")
-    end = segment.start_time + segment.duration
-    if not segment.start_time <= spec.trigger_time <= end:
-        msg = f"trigger_time {spec.trigger_time} is outside the strain segment"
-        msg += f" [{segment.start_time}, {end}] GPS s; give the candidate's GPS time"
-        raise ApiError(422, "bad_input", msg, field="trigger_time")
-
-
 def _submitted(store: Store, analysis: Analysis) -> Submitted:
     token = store.share_token(analysis.id, analysis.share_generation)
     return Submitted(id=analysis.id, state="queued", status_url=f"/api/v1/analyses/{analysis.id}",
                      report_url=f"/r/{token}", share_token=token)
+
+
+def output_names(analysis: Analysis) -> frozenset[str]:
+    """Files the output folder of ``analysis`` may hold (a network's name its detectors)."""
+    if not analysis.network:
+        return frozenset(OUTPUT_FILES)
+    from ..network_outputs import network_output_files
+
+    return frozenset(network_output_files([str(d["name"]) for d in analysis.detectors]))
+
+
+def _preview(analysis: Analysis) -> dict[str, Any] | None:
+    """The stored first look, when it has the documented shape (else left out, logged)."""
+    if analysis.preview is None:
+        return None
+    try:
+        FisherPreview.model_validate(analysis.preview)
+    except ValidationError:
+        log.warning("analysis %s: its preview is not a FisherPreview; not shown", analysis.id)
+        return None
+    return analysis.preview
 
 
 def public_view(store: Store, analysis: Analysis, *, summary: bool = True,
@@ -117,7 +92,7 @@ def public_view(store: Store, analysis: Analysis, *, summary: bool = True,
     out = store.output_dir(analysis.id)
     if analysis.state == "done":
         files = {n: f"/api/v1/analyses/{analysis.id}/files/{n}"
-                 for n in sorted(OUTPUT_FILES) if (out / n).is_file()}
+                 for n in sorted(output_names(analysis)) if (out / n).is_file()}
         if summary and (out / "summary.json").is_file():
             data = json.loads((out / "summary.json").read_text(encoding="utf-8"))
     report_url = None
@@ -131,7 +106,8 @@ def public_view(store: Store, analysis: Analysis, *, summary: bool = True,
         "progress": analysis.progress, "error": error, "label": analysis.label,
         "created": analysis.created, "updated": analysis.updated, "attempts": analysis.attempts,
         "summary": data, "status_url": f"/api/v1/analyses/{analysis.id}",
-        "report_url": report_url, "files": files, "preview": analysis.preview,
+        "report_url": report_url, "files": files, "preview": _preview(analysis),
+        "detectors": analysis.detectors, "sites": analysis.sites_file,
     })
 
 
@@ -142,17 +118,39 @@ def _found(store: Store, analysis_id: str) -> Analysis:
     return analysis
 
 
-@router.post("", status_code=202, response_model=Submitted,
+async def _form(request: Request) -> FormData:
+    """The parsed multipart body (parsed once by FastAPI for the declared fields, cached)."""
+    return await request.form()
+
+
+@router.post("", status_code=202, response_model=Submitted, openapi_extra=NETWORK_FORM_SCHEMA,
              responses={200: {"model": Submitted, "description": "an idempotent replay"}})
 def submit(
     store: StoreDep, svc: SettingsDep, owner: RateLimitedKeyDep, response: Response,
-    strain: Annotated[UploadFile, File(description="strain segment: CSV/text, .npy or .npz")],
+    form: Annotated[FormData, Depends(_form)],
     settings: Annotated[str, Form(description="JSON object: trigger_time and options")],
-    psd: Annotated[UploadFile | None, File(description="noise PSD (estimated when absent)")]
-    = None,
+    strain: Annotated[UploadFile | None, File(
+        description="one detector: strain segment, CSV/text, .npy or .npz")] = None,
+    psd: Annotated[UploadFile | None, File(
+        description="one detector: noise PSD (estimated when absent)")] = None,
+    sites: Annotated[UploadFile | None, File(
+        description="network: site file, TOML or JSON (the shipped sites when absent)")] = None,
     idempotency_key: Annotated[str | None, Header(max_length=200)] = None,
 ) -> Submitted:
-    """Queue an analysis of an uploaded strain segment (files stored before the answer)."""
+    """Queue an analysis of uploaded strain (files stored and read before the answer).
+
+    **One detector**: a file `strain` and optionally `psd`, as always.
+    **A network** (two detectors or more, analysed coherently): per detector a file
+    `strain.NAME` and optionally `psd.NAME`, NAME its site's name (1-32 letters, digits,
+    `-`, `_`), and optionally one `sites` file describing the sites (TOML/JSON
+    `[site.NAME]` tables; without it the shipped invented sites are used). A PSD is
+    given for every detector or for none; `settings` (and its `sample_rate`,
+    `start_time`, `asd`) applies to every detector. `strain` and `strain.NAME` are not
+    mixed, and no field is sent twice. Every file is read before the answer: bad input
+    gets 422 with `error.field` naming the field, e.g. `strain.NAME` or `psd.NAME`, and
+    nothing is stored.
+    """
+    layout = form_layout(form)
     if idempotency_key and (old := store.by_idempotency_key(owner, idempotency_key)):
         response.status_code = 200
         return _submitted(store, old)
@@ -163,30 +161,16 @@ def submit(
                        " this server queues; retry later", headers={"Retry-After": "30"})
     scratch = store.scratch_dir()
     try:
-        strain_name = _safe_name(strain.filename, "strain.dat")
-        inputs: dict[str, Any] = {"strain": _save(strain.file, scratch / "strain" / strain_name,
-                                                  svc.max_upload_bytes, "strain"), "psd": None}
-        request: dict[str, Any] = {
-            "strain": f"inputs/strain/{strain_name}", "psd": None, "asd": spec.asd,
-            "sample_rate": spec.sample_rate, "start_time": spec.start_time, "label": spec.label,
-            "settings": spec.model_dump(include={"trigger_time", "f_low", "f_high",
-                                                 "chirp_mass_guess", "seed"}),
-        }
-        if psd is not None and psd.filename:
-            psd_name = _safe_name(psd.filename, "psd.dat")
-            left = svc.max_upload_bytes - inputs["strain"]["bytes"]
-            inputs["psd"] = _save(psd.file, scratch / "psd" / psd_name, left, "psd")
-            request["psd"] = f"inputs/psd/{psd_name}"
-        local = {"strain": f"strain/{strain_name}",
-                 "psd": request["psd"] and request["psd"].removeprefix("inputs/")}
-        _check_inputs(scratch, spec, local, svc)
+        if layout.network:
+            request, inputs, label = save_network(scratch, spec, svc, layout)
+        else:
+            request, inputs, label = save_single(scratch, spec, svc, layout.detectors[0])
         analysis_id = secrets.token_hex(16)
         folder = store.analysis_dir(analysis_id)
         folder.mkdir(parents=True)
         scratch.rename(folder / "inputs")
     finally:
         shutil.rmtree(scratch, ignore_errors=True)
-    label = spec.label or Path(strain_name).stem
     token = store.share_token(analysis_id, 0)
     try:
         store.insert_analysis(analysis_id=analysis_id, label=label, request=request,
@@ -235,9 +219,10 @@ def cancel_analysis(analysis_id: str, store: StoreDep, owner: KeyDep) -> Analysi
 def output_file(store: Store, analysis: Analysis, name: str) -> FileResponse:
     """A file of a finished analysis' output folder (404 for any other name)."""
     path = store.output_dir(analysis.id) / name
-    if analysis.state != "done" or name not in OUTPUT_FILES or not path.is_file():
+    names = output_names(analysis)
+    if analysis.state != "done" or name not in names or not path.is_file():
         raise ApiError(404, "not_found", f"no file {name!r} for this analysis; files exist"
-                       f" once it is done: {', '.join(sorted(OUTPUT_FILES))}")
+                       f" once it is done: {', '.join(sorted(names))}")
     return FileResponse(path, media_type=_MEDIA.get(path.suffix, "application/octet-stream"))
 
 

@@ -7,6 +7,10 @@
    upload form puts each error where the service contract (issue 3) says it goes, the
    status page follows server-sent events to "done" and reloads into the report, and it
    fetches the Fisher-matrix first look when a new stage shows it is known.
+3. Several detectors (issue 8) against the real application without workers (in-process
+   uvicorn): two detector rows upload a simulated network drill, the job is accepted and
+   its status page lists both detectors; a bad file's 422 lands in its own row; a row
+   added and removed again leaves the one-detector submission as it was.
 
 Skipped only when /usr/bin/chromium is absent (.ci/run installs it). Every wait is bounded.
 """
@@ -26,7 +30,9 @@ import pytest
 from fastapi import FastAPI, Form, UploadFile
 from fastapi.responses import HTMLResponse, JSONResponse, StreamingResponse
 
+from service.app import create_app
 from service.routes import pages
+from service.settings import ServiceSettings
 
 from .serving import REPO_ROOT, start_server
 
@@ -256,14 +262,13 @@ def _stub_app() -> Any:
     return app
 
 
-@pytest.fixture(scope="module")
-def stub() -> Iterator[tuple[str, Any]]:
+def _serve(app: Any) -> Iterator[str]:
+    """Run ``app`` with uvicorn on a free loopback port in a thread; yield its base URL."""
     import uvicorn
 
     with socket.socket() as sock:
         sock.bind(("127.0.0.1", 0))
         port = sock.getsockname()[1]
-    app = _stub_app()
     server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning"))
     thread = threading.Thread(target=server.run, daemon=True)
     thread.start()
@@ -271,9 +276,16 @@ def stub() -> Iterator[tuple[str, Any]]:
         if server.started:
             break
         time.sleep(0.05)
-    yield f"http://127.0.0.1:{port}", app
+    yield f"http://127.0.0.1:{port}"
     server.should_exit = True
     thread.join(timeout=10)
+
+
+@pytest.fixture(scope="module")
+def stub() -> Iterator[tuple[str, Any]]:
+    app = _stub_app()
+    for base in _serve(app):
+        yield base, app
 
 
 @pytest.mark.parametrize(("label", "where", "words"), [
@@ -352,3 +364,135 @@ def test_status_page_fetches_the_first_look_when_it_is_known(page: Any,
     assert "Optimal SNR of the best-fit model: 20.2" in text
     assert "Cutler & Flanagan 1994" in text
     assert page.inner_text("#stage") == "Sampling the posterior"
+
+
+# ---- several detectors, against the application itself (no workers: jobs stay queued) ----
+
+NETWORK_START = 1_000_000_000.0
+
+
+def _network_drill(folder: Path) -> dict[str, Path]:
+    """heron and plover: 8 s at 1024 Hz of one simulated signal, and their noise PSD."""
+    import numpy as np
+
+    from estimator.simulate import NetworkInjection, design_spectrum, simulate_network
+    from estimator.sites import SHIPPED_SITES, gps_to_gmst
+    from service.drill import write_psd, write_strain
+
+    tc = NETWORK_START + 6.0
+    spectrum = design_spectrum()
+    injection = NetworkInjection(8.0, 0.8, 300.0, 0.5, 0.3, 1.0, -0.4, tc)
+    names = ("heron", "plover")
+    segments = simulate_network(injection, [SHIPPED_SITES[n] for n in names],
+                                [spectrum, spectrum], gmst=gps_to_gmst(tc), duration=8.0,
+                                sample_rate=1024.0, start_time=NETWORK_START,
+                                rng=np.random.default_rng(5))
+    files: dict[str, Path] = {}
+    for segment in segments:
+        name = segment.detector
+        files[name] = write_strain(segment, folder / name, "npz")
+        files[f"{name}-psd"] = write_psd(spectrum, folder / f"{name}-psd.csv")
+    return files
+
+
+@pytest.fixture
+def service_url(tmp_path: Path) -> Iterator[tuple[str, Path]]:
+    data = tmp_path / "data"
+    for base in _serve(create_app(ServiceSettings(data_dir=data, workers=1))):
+        yield base, data
+
+
+def _two_rows(page: Any, files: dict[str, Path], *, plover_strain: Path | None = None) -> None:
+    page.click("#add-detector")
+    page.wait_for_selector("#strain-1", state="visible", timeout=5_000)
+    assert page.input_value("#site-0") == "heron"  # the shipped sites, one per row
+    assert page.input_value("#site-1") == "plover"
+    page.set_input_files("#strain", str(files["heron"]))
+    page.set_input_files("#psd", str(files["heron-psd"]))
+    page.set_input_files("#strain-1", str(plover_strain or files["plover"]))
+    page.set_input_files("#psd-1", str(files["plover-psd"]))
+    page.fill("#trigger_time", f"{NETWORK_START + 6.0:.0f}")
+
+
+def test_network_upload_lists_both_detectors(service_url: tuple[str, Path], page: Any,
+                                             tmp_path: Path) -> None:
+    # the page (and its event stream) closes before the server: fixtures end in reverse
+    import httpx
+
+    base, _ = service_url
+    files = _network_drill(tmp_path)
+    page.goto(base + "/")
+    assert page.locator("#field-sites").is_hidden()  # one row: the form of one detector
+    assert page.locator("#site-0").is_hidden()
+    _two_rows(page, files)
+    assert page.locator("#field-sites").is_visible()
+    page.fill("#label", "two-site check")
+    shot = tmp_path / "upload-network.png"
+    page.screenshot(path=str(shot), full_page=True)
+    shutil.copyfile(shot, "/tmp/chirpcast_upload_network.png")
+    page.click("#submit")
+    page.wait_for_url("**/r/**", timeout=30_000)
+    page.wait_for_function("() => document.querySelectorAll('#detector-table tbody tr')"
+                           ".length === 2 && !document.getElementById('detectors').hidden",
+                           timeout=10_000)
+    rows = page.locator("#detector-table tbody tr")
+    assert [rows.nth(i).get_attribute("data-name") for i in range(2)] == ["heron", "plover"]
+    assert "plover-psd.csv" in page.inner_text("#detectors")
+    assert page.inner_text("h1").strip() == "two-site check"
+    page.screenshot(path=str(tmp_path / "status-network.png"), full_page=True)
+    shutil.copyfile(tmp_path / "status-network.png", "/tmp/chirpcast_status_network.png")
+    status_url = page.get_attribute("#status", "data-status-url")
+    with httpx.Client(base_url=base, timeout=10.0) as client:
+        status = client.get(status_url).json()
+    assert status["state"] == "queued"
+    assert [d["name"] for d in status["detectors"]] == ["heron", "plover"]
+
+
+def test_network_error_lands_in_its_row(page: Any, service_url: tuple[str, Path],
+                                        tmp_path: Path) -> None:
+    base, data = service_url
+    files = _network_drill(tmp_path)
+    wrong = tmp_path / "three_columns.txt"
+    wrong.write_text("".join(f"{i} {i * 1e-22:.3e} {i}\n" for i in range(64)))
+    page.goto(base + "/")
+    _two_rows(page, files, plover_strain=wrong)
+    page.click("#submit")
+    page.wait_for_function("() => document.getElementById('error-strain-1').textContent",
+                           timeout=10_000)
+    message = page.inner_text("#error-strain-1")
+    assert "plover" in message, message
+    assert "three_columns.txt" in message, message
+    assert page.inner_text("#error-strain") == ""  # heron's row has nothing to fix
+    assert page.url == base + "/"
+    assert list((data / "analyses").iterdir()) == []  # nothing stored
+    page.screenshot(path="/tmp/chirpcast_upload_network_error.png", full_page=True)
+    # a PSD for one detector only is caught before sending, in the row that lacks it
+    page.set_input_files("#psd-1", [])
+    page.click("#submit")
+    assert "for every detector, or for none" in page.inner_text("#error-psd-1")
+    # with a site file, the site names are typed (and start from the names picked)
+    page.set_input_files("#sites", str(REPO_ROOT / "demo_data" / "sites.toml"))
+    assert page.locator("#site-0").is_hidden()
+    assert page.input_value("#site-name-1") == "plover"
+    page.fill("#site-name-1", "he ron")
+    page.click("#submit")
+    assert "not a site name" in page.inner_text("#error-site-1")
+    page.screenshot(path="/tmp/chirpcast_upload_network_typed.png", full_page=True)
+
+
+def test_added_then_removed_row_submits_one_detector(page: Any, stub: tuple[str, Any],
+                                                     tmp_path: Path) -> None:
+    base, _ = stub
+    strain = tmp_path / "s.txt"
+    strain.write_text("1e-22\n2e-22\n")
+    page.goto(base + "/")
+    page.click("#add-detector")
+    page.click("#add-detector")
+    assert page.locator(".detector").count() == 3
+    page.locator("#detector-1 [data-part=remove]").click()
+    page.locator("#detector-2 [data-part=remove]").click()
+    assert page.locator(".detector").count() == 1
+    assert page.locator("#site-0").is_hidden()
+    assert page.locator("#field-sites").is_hidden()
+    _fill(page, strain, label="fine")  # the stand-in takes only a field named "strain"
+    page.wait_for_url("**/r/tok", timeout=10_000)
