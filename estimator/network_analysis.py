@@ -282,7 +282,7 @@ def run_network_analysis(
         chain=run.chain,
         coordinates=run.coordinates,
         likelihood=run.likelihood,
-        exact=ExactNetworkLikelihood(data, sites, reference, gmst),
+        exact=ExactNetworkLikelihood(data, sites, reference, gmst, run.likelihood.marginal),
         samples=run.samples,
         sample_log_likelihood=run.sample_log_likelihood,
         check=run.check,

@@ -12,7 +12,10 @@ The sampler mixes emcee's differential-evolution move with the same move at
 ``gamma = 1`` one time in ten, which carries a walker from one mode to the
 position of another walker's mode (ter Braak 2006, Stat. Comput. 16, 239,
 Sec. 2: "gamma = 1 ... to jump between modes"); that lets walkers move between
-sky modes so that their shares follow the posterior rather than the start.
+sky modes so that their shares follow the posterior rather than the start;
+and one time in ten a sky jump proposed from the scan itself
+(:class:`estimator.network_moves.SkyJumpMove`), which reaches modes no walker
+sits in.
 As for one detector, the binned likelihood is checked against the exact one
 on posterior draws, refined (re-centred, twice the bins) when they differ, and
 the samples reweighted with the exact likelihood as a last resort
@@ -35,6 +38,7 @@ from .distance_marginal import DistanceMarginal
 from .errors import InputError
 from .likelihood import log_i0
 from .network_model import ExactNetworkLikelihood, NetworkLikelihood, SiteGeometry
+from .network_moves import SkyJumpMove
 from .network_prior import PERIODS, NetworkCoordinates, NetworkPrior
 from .posterior import LikelihoodCheck
 from .sampler import ChainResult, run_ensemble
@@ -49,6 +53,11 @@ Params = Mapping[str, Array]
 #: Start points lie at most this far below the best log-posterior: half the 99.9%
 #: quantile of chi^2 with 8 degrees of freedom (common practice).
 NETWORK_START_DEPTH = 13.06
+#: A walker whose best log-posterior over a check interval stays this far below the
+#: median is stranded in a negligible mode (for a 7-parameter Gaussian posterior the
+#: 1e-4 quantile of the log-posterior lies 11.4 below its median: half the chi^2_7
+#: quantiles, common practice); it is regrouped while burning in.
+STRANDED_GAP_7D = 15.0
 
 
 @dataclass
@@ -82,7 +91,7 @@ def log_posterior(
         ok = np.isfinite(lp)
         if np.any(ok):
             out[ok] = lp[ok] + like.log_likelihood({k: v[ok] for k, v in p.items()})
-        return out
+        return np.where(np.isnan(out), -np.inf, out)
 
     return f
 
@@ -213,7 +222,9 @@ def sample_network_posterior(
         "declination": float(scan.declination[best]),
         "coalescence_time": float(scan.time[best]),
     }
-    n_bins = settings.n_bins
+    # Twice the one-detector default: measured on drills, 96 bins often just miss the
+    # tolerance on posterior draws, and each refinement reruns the whole chain.
+    n_bins = 2 * settings.n_bins
     binned = NetworkLikelihood(datasets, sites, reference, gmst, fid, n_bins, marginal)
     post = log_posterior(binned, prior, coords)
     cand = _candidates(scan, coords, binned, fid, rng, 40 * walkers)
@@ -247,7 +258,11 @@ def sample_network_posterior(
     notes: list[str] = []
     sampling_time = time.perf_counter() - clock
     check_time = 0.0
-    moves = [(emcee.moves.DEMove(), 0.9), (emcee.moves.DEMove(gamma0=1.0), 0.1)]
+    moves = [
+        (emcee.moves.DEMove(), 0.8),
+        (emcee.moves.DEMove(gamma0=1.0), 0.1),
+        (SkyJumpMove(scan, names), 0.1),
+    ]
     chain: ChainResult | None = None
     check: LikelihoodCheck | None = None
     for refinement in range(settings.max_refinements + 1):
@@ -262,6 +277,8 @@ def sample_network_posterior(
             progress=progress,
             moves=moves,
             periods=PERIODS,
+            check_growth=0.25,
+            stranded_gap=STRANDED_GAP_7D,
         )
         sampling_time += time.perf_counter() - clock
         clock = time.perf_counter()

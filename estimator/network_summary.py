@@ -3,8 +3,10 @@
 As for one detector (:mod:`estimator.summary`): redshift from the luminosity
 distance in flat Lambda-CDM (Planck 2018), source-frame masses
 ``m / (1 + z)``, the probability that a component is below 3 Msun. Added:
-inclination, polarisation angle, sky position (equatorial coordinates of the
-event's date: mean equator and equinox, see :mod:`estimator.sites`), the
+inclination, polarisation angle, sky position (sampled in equatorial
+coordinates of the event's date, mean equator and equinox, see
+:mod:`estimator.sites`; reported in J2000 after precession,
+:mod:`estimator.precession`), the
 per-detector and network SNRs (:mod:`estimator.network_products`) and the
 sky map's credible areas (:mod:`estimator.skymap`).
 """
@@ -21,6 +23,7 @@ from . import __version__
 from .cosmology import redshift_from_distance
 from .network_analysis import NetworkResult
 from .network_products import DetectorView, best_sample, network_quality
+from .precession import of_date_to_j2000
 from .settings import settings_dict
 from .skymap import SkyMap
 from .stats import credible_interval, probability_below
@@ -32,6 +35,7 @@ __all__ = [
     "NETWORK_UNITS",
     "build_network_summary",
     "derive_network_samples",
+    "sky_j2000",
 ]
 
 Array = NDArray[np.float64]
@@ -53,10 +57,16 @@ NETWORK_LABELS: dict[str, str] = {
     "coalescence_time": "coalescence time at the geocentre (GPS)",
     "inclination": "inclination (angle of the orbital axis to the line of sight)",
     "polarization_angle": "polarisation angle",
-    "right_ascension": "right ascension (of date)",
-    "declination": "declination (of date)",
+    "right_ascension": "right ascension (J2000)",
+    "declination": "declination (J2000)",
     "network_snr": "network matched-filter SNR",
 }
+
+
+def sky_j2000(result: NetworkResult, ra: Array, dec: Array) -> tuple[Array, Array]:
+    """Sampled sky coordinates (of the event's date, rad) in J2000 (rad)."""
+    out = of_date_to_j2000(np.asarray(ra), np.asarray(dec), result.reference_time)
+    return np.asarray(out[0], dtype=float), np.asarray(out[1], dtype=float)
 
 
 def derive_network_samples(result: NetworkResult) -> dict[str, Array]:
@@ -70,6 +80,7 @@ def derive_network_samples(result: NetworkResult) -> dict[str, Array]:
     z = redshift_from_distance(d_l)
     m1, m2 = component_masses(s["chirp_mass"], s["mass_ratio"])
     zz, hh = result.likelihood.components(s)  # at each sample's distance
+    ra, dec = sky_j2000(result, s["right_ascension"], s["declination"])
     out = {
         "chirp_mass": s["chirp_mass"],
         "mass_ratio": s["mass_ratio"],
@@ -79,8 +90,8 @@ def derive_network_samples(result: NetworkResult) -> dict[str, Array]:
         "luminosity_distance": d_l,
         "inclination": np.degrees(s["inclination"]),
         "polarization_angle": np.degrees(s["polarization_angle"]),
-        "right_ascension": np.degrees(s["right_ascension"]),
-        "declination": np.degrees(s["declination"]),
+        "right_ascension": np.degrees(ra),
+        "declination": np.degrees(dec),
         "coalescence_time": result.reference_time + s["coalescence_time"],
         "coalescence_offset": s["coalescence_time"],
         "redshift": z,
@@ -139,6 +150,8 @@ def build_network_summary(
     chain = result.chain
     best = best_sample(result)
     ml = {k: float(v) for k, v in best.items()}
+    ra, dec = sky_j2000(result, np.array([ml["right_ascension"]]), np.array([ml["declination"]]))
+    ml["right_ascension"], ml["declination"] = float(ra[0]), float(dec[0])
     for k in ("inclination", "polarization_angle", "right_ascension", "declination"):
         ml[k] = float(np.degrees(ml[k]))
     ml["coalescence_time"] += result.reference_time
@@ -161,7 +174,8 @@ def build_network_summary(
         "sky": {
             "area_90_deg2": skymap.credible_area(0.9),
             "area_50_deg2": skymap.credible_area(0.5),
-            "frame": "equatorial, mean equator and equinox of the event's date",
+            "frame": "J2000 equatorial (precessed from the mean equator and equinox of the "
+            "event's date; nutation and frame bias neglected, below 1e-4 rad)",
             "pixelisation": f"HEALPix nside {skymap.nside}, nested",
             "kernel_width_deg": float(np.degrees(skymap.bandwidth)),
         },
@@ -230,8 +244,9 @@ def build_network_summary(
             "detectors, described by each detector's one-sided PSD",
             "cosmology": "flat Lambda-CDM, H0 = 67.66 km/s/Mpc, Omega_m = 0.30966 (Planck 2018)",
             "detectors": list(result.names),
-            "sky_coordinates": "equatorial of date; the Earth's rotation is taken from the "
-            "GPS time (sidereal time with UT1 = UTC)",
+            "sky_coordinates": "sampled in equatorial coordinates of date (the Earth's "
+            "rotation from the GPS time, sidereal time with UT1 = UTC), reported in J2000 "
+            "(IAU 2006 precession)",
         },
         "quality": quality.to_dict(),
         "notes": list(result.notes),

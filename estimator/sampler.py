@@ -92,7 +92,9 @@ STRANDED_GAP = 25.0
 MAX_REGROUPS = 3
 
 
-def _regroup(state: emcee.State, recent: Array, *, rng_seed: int) -> Array | None:
+def _regroup(
+    state: emcee.State, recent: Array, *, rng_seed: int, gap: float = STRANDED_GAP
+) -> Array | None:
     """New positions when some walkers are stranded far below the rest, else ``None``.
 
     A walker that starts in a wide, nearly flat region of negligible posterior
@@ -105,7 +107,7 @@ def _regroup(state: emcee.State, recent: Array, *, rng_seed: int) -> Array | Non
     """
     best = np.max(recent, axis=0)
     median = float(np.median(state.log_prob))
-    stranded = best < median - STRANDED_GAP
+    stranded = best < median - gap
     if not np.any(stranded) or np.sum(~stranded) < 2:
         return None
     rng = np.random.default_rng(rng_seed)
@@ -138,12 +140,30 @@ def _wrapped(coords: Array, wrap: Mapping[int, float], centres: Mapping[int, flo
 def _autocorr_time(
     sampler: emcee.EnsembleSampler, discard: int, wrap: Mapping[int, float]
 ) -> Array:
-    """Integrated autocorrelation time per column (periodic ones in their centred window)."""
+    """Integrated autocorrelation time per column.
+
+    A periodic column's time is the larger of those of ``cos`` and ``sin`` of its
+    angle (a circular variable has no seam-free linear value; common practice):
+    a nearly uniform angle, as a polarisation angle often is, would otherwise jump
+    across whatever seam it is cut at and its estimate would not settle.
+    """
     if not wrap:
         return np.asarray(sampler.get_autocorr_time(discard=discard, tol=0), dtype=float)
     chain = sampler.get_chain(discard=discard)
-    chain = _wrapped(chain, wrap, _centres(chain[-1], wrap))
-    return np.asarray(emcee.autocorr.integrated_time(chain, tol=0), dtype=float)
+    columns = [chain[..., j] for j in range(chain.shape[-1]) if j not in wrap]
+    for j, period in wrap.items():
+        angle = 2.0 * np.pi * chain[..., j] / period
+        columns += [np.cos(angle), np.sin(angle)]
+    # A walker that never moved has a zero autocovariance: its tau is undefined (nan),
+    # which the caller treats as "not converged".
+    with np.errstate(invalid="ignore", divide="ignore"):
+        taus = emcee.autocorr.integrated_time(np.stack(columns, axis=-1), tol=0)
+    out = np.empty(chain.shape[-1])
+    plain = [j for j in range(chain.shape[-1]) if j not in wrap]
+    out[plain] = taus[: len(plain)]
+    for k, j in enumerate(wrap):
+        out[j] = max(taus[len(plain) + 2 * k], taus[len(plain) + 2 * k + 1])
+    return out
 
 
 def run_ensemble(
@@ -161,6 +181,8 @@ def run_ensemble(
     progress: Callable[[float], None] | None = None,
     moves: Sequence[tuple[emcee.moves.Move, float]] | None = None,
     periods: Mapping[str, float] | None = None,
+    check_growth: float = 0.0,
+    stranded_gap: float = STRANDED_GAP,
 ) -> ChainResult:
     """Run emcee from ``start`` until converged or ``max_steps``.
 
@@ -183,8 +205,15 @@ def run_ensemble(
         periodic in them, so walkers are moved by whole periods between runs of
         ``check_every`` steps (into one period centred on the walkers' circular
         mean; this leaves the target on the circle unchanged) and the chain is
-        returned, and its autocorrelation estimated, in that window: a mode that
-        straddles ``0`` is not split in two.
+        returned in that window (a mode that straddles ``0`` is not split in two);
+        their autocorrelation is estimated from the cosine and sine of the angle.
+    check_growth
+        When positive, the convergence checks (each costs FFTs of the whole chain)
+        are spaced at least this fraction of the chain's length apart, so their
+        total cost grows like ``steps log steps`` rather than ``steps^2``.
+    stranded_gap
+        A walker whose best log-posterior over a check interval stays this far below
+        the ensemble's median is moved onto another walker while burning in.
     """
     names = tuple(names)
     walkers, ndim = start.shape
@@ -210,18 +239,27 @@ def run_ensemble(
     steps = 0
     reset_at = 0  # every step before this one is discarded (see _regroup)
     regroups = 0
+    need = 0.0  # steps the last check expected the run to need (for the progress bar)
     while steps < max_steps:
-        n = min(check_every, max_steps - steps)
-        state = sampler.run_mcmc(state, n, progress=False)
-        steps += n
-        if wrap:
-            state = emcee.State(
-                _wrapped(state.coords, wrap, _centres(state.coords, wrap)),
-                log_prob=state.log_prob,
-                random_state=state.random_state,
-            )
+        span = min(max(check_every, int(check_growth * (steps - reset_at))), max_steps - steps)
+        n = 0
+        while n < span:
+            chunk = min(check_every, span - n)
+            state = sampler.run_mcmc(state, chunk, progress=False)
+            steps += chunk
+            n += chunk
+            if wrap:
+                state = emcee.State(
+                    _wrapped(state.coords, wrap, _centres(state.coords, wrap)),
+                    log_prob=state.log_prob,
+                    random_state=state.random_state,
+                )
+            if progress is not None and need > 0 and n < span:
+                progress(min(0.99, steps / need))
         if regroups < MAX_REGROUPS:
-            regrouped = _regroup(state, sampler.get_log_prob()[-n:], rng_seed=seed + steps)
+            regrouped = _regroup(
+                state, sampler.get_log_prob()[-n:], rng_seed=seed + steps, gap=stranded_gap
+            )
             if regrouped is not None:
                 state = emcee.State(regrouped, random_state=state.random_state)
                 reset_at, old_tau, regroups = steps, np.full(ndim, np.inf), regroups + 1
@@ -239,11 +277,15 @@ def run_ensemble(
                 converged = True
             if progress is not None:
                 # The larger of the two shortfalls decides how much is left.
-                need = reset_at + max(
-                    tau_factor * np.max(tau),
-                    target_effective_samples * np.max(tau) / walkers + burn - reset_at,
+                need = max(
+                    1.0,
+                    reset_at
+                    + max(
+                        tau_factor * np.max(tau),
+                        target_effective_samples * np.max(tau) / walkers + burn - reset_at,
+                    ),
                 )
-                progress(min(1.0, steps / max(need, 1.0)))
+                progress(min(1.0, steps / need))
         old_tau = tau
         if converged:
             break

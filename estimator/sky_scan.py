@@ -14,8 +14,10 @@ angle; the span does not depend on it): the coherent SNR
 is twice the log-likelihood maximised over distance, inclination,
 polarisation and phase (the F-statistic of Jaranowski, Królak & Schutz 1998,
 PRD 58, 063001, Sec. III; the coherent network SNR of Harry & Fairhurst 2011,
-PRD 83, 084002, Eq. 2.13). The sky grid is a Fibonacci lattice, nearly equal
-areas per point (González 2010, Math. Geosci. 42, 49). The geocentric times
+PRD 83, 084002, Eq. 2.13). The sky grid is the centres of equal-area cells,
+equal steps in right ascension and in ``sin dec`` (Lambert's cylindrical
+equal-area projection, Snyder 1987, USGS Prof. Paper 1395, Sec. 10; the same
+cells serve the sampler's sky-jump proposal). The geocentric times
 tried at each point put the loudest detector's arrival within a few samples
 of its own SNR peak, so the scan costs (points x 17 x detectors).
 """
@@ -33,7 +35,7 @@ from .conditioning import DetectorData
 from .network_model import SiteGeometry
 from .waveform import isco_frequency, symmetric_mass_ratio, taylorf2_phase
 
-__all__ = ["SkyScan", "fibonacci_sphere", "sky_scan"]
+__all__ = ["SkyScan", "equal_area_cells", "fibonacci_sphere", "sky_scan"]
 
 Array = NDArray[np.float64]
 
@@ -47,6 +49,18 @@ def fibonacci_sphere(n: int) -> tuple[Array, Array]:
     j = np.arange(n)
     golden = 0.5 * (1.0 + np.sqrt(5.0))
     return np.mod(2.0 * np.pi * j / golden, 2.0 * np.pi), np.arcsin(1.0 - (2.0 * j + 1.0) / n)
+
+
+def equal_area_cells(n_ra: int, n_dec: int) -> tuple[Array, Array]:
+    """Centres (ra, dec; rad) of ``n_ra x n_dec`` equal-area cells, ``sin dec`` index fastest.
+
+    Cell ``(i, j)`` spans ``ra in 2 pi [i, i+1) / n_ra`` and
+    ``sin dec in -1 + 2 [j, j+1) / n_dec``; every cell covers ``4 pi / (n_ra n_dec)`` sr.
+    """
+    ra = 2.0 * np.pi * (np.arange(n_ra) + 0.5) / n_ra
+    sin_dec = -1.0 + 2.0 * (np.arange(n_dec) + 0.5) / n_dec
+    r, s = np.meshgrid(ra, sin_dec, indexing="ij")
+    return r.ravel(), np.arcsin(s.ravel())
 
 
 @dataclass(frozen=True)
@@ -64,6 +78,8 @@ class SkyScan:
         Coherent ``rho^2`` there (maximised over time).
     spacing
         Typical grid spacing, rad.
+    cells
+        ``(n_ra, n_dec)`` of the grid (:func:`equal_area_cells`).
     loudest
         Index of the detector whose peak anchored the times.
     detector_snr
@@ -75,6 +91,7 @@ class SkyScan:
     time: Array
     snr2: Array
     spacing: float
+    cells: tuple[int, int]
     loudest: int
     detector_snr: Array
 
@@ -122,7 +139,7 @@ def sky_scan(
     chirp_mass: float,
     mass_ratio: float,
     time_window: float,
-    points: int = 12_000,
+    cells: tuple[int, int] = (256, 128),
     offsets: int = 8,
 ) -> SkyScan:
     """Coherent SNR over the sky for the template ``(chirp_mass, mass_ratio)``.
@@ -131,8 +148,9 @@ def sky_scan(
     ----------
     time_window
         Half-width of the geocentric-time prior around the reference time, s.
-    points
-        Sky grid size (12,000 points: ~1.9 deg spacing).
+    cells
+        Sky grid: cells in right ascension and in ``sin dec`` (32,768 cells of
+        1.26 deg^2 by default).
     offsets
         Times tried per point: the loudest detector's peak +- this many samples.
     """
@@ -156,7 +174,8 @@ def sky_scan(
     loudest = int(np.argmax(peaks))
     t_peak = float(grid[inside][np.argmax(np.abs(s[loudest, inside]))])
 
-    ra, dec = fibonacci_sphere(points)
+    ra, dec = equal_area_cells(*cells)
+    points = ra.size
     zero = np.zeros(points)
     delays = np.array([site.time_delay(ra, dec, gmst) for site in sites])  # (n_det, m)
     fp_fc = [site.antenna_pattern(ra, dec, zero, gmst) for site in sites]
@@ -193,6 +212,7 @@ def sky_scan(
         time=best_t,
         snr2=best,
         spacing=float(np.sqrt(4.0 * np.pi / points)),
+        cells=cells,
         loudest=loudest,
         detector_snr=peaks,
     )

@@ -20,6 +20,7 @@ import numpy as np
 
 from estimator.errors import InputError
 from estimator.network_model import antenna_factor
+from estimator.precession import j2000_to_of_date
 from estimator.simulate import Injection, NetworkInjection, simulate_network
 from estimator.sites import Site, gps_to_gmst
 
@@ -131,7 +132,10 @@ def simulate_network_files(args: argparse.Namespace) -> dict[str, Any]:
     if "," in str(out):
         raise _fail(f"{out} holds a comma, which --detector entries cannot; rename it", "out")
     gmst = gps_to_gmst(tc)
-    ra, dec = math.radians(deg["right_ascension"]), math.radians(deg["declination"])
+    # The options are J2000, like the report; the model works in coordinates of date.
+    ra_j2000, dec_j2000 = math.radians(deg["right_ascension"]), math.radians(deg["declination"])
+    ra_date, dec_date = j2000_to_of_date(np.array([ra_j2000]), np.array([dec_j2000]), tc)
+    ra, dec = float(ra_date[0]), float(dec_date[0])
     iota, psi = math.radians(deg["inclination"]), math.radians(deg["polarization"])
     factors, delays, patterns = [], [], []
     for site in sites:
@@ -179,8 +183,12 @@ def simulate_network_files(args: argparse.Namespace) -> dict[str, Any]:
         "luminosity_distance": distance,
         "inclination": iota,
         "polarization_angle": psi,
-        "right_ascension": ra,
-        "declination": dec,
+        "right_ascension": ra_j2000,
+        "declination": dec_j2000,
+        "sky_frame": "J2000 (right_ascension, declination and angles_deg); the simulation "
+        "used the same direction in coordinates of date",
+        "right_ascension_of_date": ra,
+        "declination_of_date": dec,
         "coalescence_time": tc,
         "phase": args.phase,
         "network_optimal_snr": network,

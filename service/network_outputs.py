@@ -92,7 +92,9 @@ def _make_plots(
     pool = _plot_pool()
     args = (corner_samples, folder / files["corner"], labels)
     pending = pool.submit(_corner, *args) if pool is not None else None
-    plot_sky_map(skymap, folder / files["sky_map"], title="Sky position of the source")
+    plot_sky_map(
+        skymap, folder / files["sky_map"], title="Sky position of the source", frame="J2000"
+    )
     for view in views:
         data = view.data
         window = (max(-0.6, float(view.times[0])), 0.1)
@@ -145,8 +147,8 @@ def write_network_outputs(
     views = detector_views(result)
     snrs = detector_snrs(result, seed=result.seed)
     skymap = sky_map_from_samples(
-        result.samples["right_ascension"],
-        result.samples["declination"],
+        np.radians(derived["right_ascension"]),
+        np.radians(derived["declination"]),
         rng=np.random.default_rng([result.seed, 2]),
     )
     summary = build_network_summary(

@@ -63,7 +63,7 @@ GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
       "source_total_mass", "redshift")),
     ("Distance and time", "",
      ("luminosity_distance", "effective_distance", "orientation_factor", "coalescence_time")),
-    ("Sky position and orientation", "equatorial coordinates of the event's date",
+    ("Sky position and orientation", "equatorial coordinates, J2000",
      ("right_ascension", "declination", "inclination", "polarization_angle")),
     ("Signal strength", "", ("snr", "network_snr")),
 )
@@ -78,7 +78,7 @@ QUALITY_TITLES: Mapping[str, str] = {
     "likelihood_check": "Fast likelihood agrees with exact",
 }
 #: Plot keys in report order; their titles and captions live in templates/figures.html.
-PLOT_ORDER = ("corner", "whitened", "time_frequency", "spectrum", "traces")
+PLOT_ORDER = ("sky_map", "corner", "whitened", "time_frequency", "spectrum", "traces")
 _SAFE_SCHEMES = ("http", "https", "data", "file")
 
 
@@ -265,7 +265,11 @@ def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
     if share_url is not None and not share_url.lower().startswith(("http://", "https://")):
         msg = f"share_url {share_url[:40]!r} must be an absolute http(s) URL"
         raise ValueError(msg)
-    keys = [k for k in PLOT_ORDER if k in images] + [k for k in images if k not in PLOT_ORDER]
+    # Known figures in report order; others (per-detector ones) before the sampler traces.
+    known = [k for k in PLOT_ORDER if k in images]
+    others = [k for k in images if k not in PLOT_ORDER]
+    cut = known.index("traces") if "traces" in known else len(known)
+    keys = known[:cut] + others + known[cut:]
     plots = [{"key": k.replace(":", "-"), "src": _checked_link(images[k], f"image {k!r}"),
               "text": plot_title(k)} for k in keys]
     software = summary.get("software", {})

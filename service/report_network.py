@@ -18,8 +18,8 @@ _FIGURES: Mapping[str, tuple[str, str, str]] = {
     "sky_map": (
         "Sky position",
         "Posterior probability per square degree on the whole sky (Mollweide projection, "
-        "equatorial coordinates of the event's date; right ascension increases to the left), "
-        "with the 50% and 90% credible regions.",
+        "J2000 equatorial coordinates; right ascension increases to the left), with the 50% "
+        "and 90% credible regions; a compact region is also shown enlarged.",
         "one compact patch; two or more patches or an arc mean the network cannot tell "
         "them apart (mirror images of equal arrival-time differences), so search them all.",
     ),

@@ -45,7 +45,8 @@ def _status_page(analysis: Analysis) -> str:
         return pages.render_status(
             analysis.id, state=analysis.state, stage=analysis.stage, progress=analysis.progress,
             label=analysis.label, error_message=analysis.error_message,
-            error_field=analysis.error_field, preview=analysis.preview)
+            error_field=analysis.error_field, preview=analysis.preview,
+            detectors=analysis.detectors)
     except Exception:  # the template is optional: fall back to plain HTML
         log.debug("status template unavailable; plain status page", exc_info=True)
     error = (f"<p>{html.escape(analysis.error_message or '')}</p>"

@@ -23,6 +23,11 @@ Sources
   signature and the IHDR width and height, read with ``struct``.
 * Right ascension increasing to the left on all-sky maps: common practice in
   astronomy.
+* The zoom panel's gnomonic projection (Snyder 1987, Map Projections - A Working Manual,
+  USGS Prof. Paper 1395, section 22, Eqs. 22-3 to 22-5, from memory):
+  ``cos c = sin d0 sin d + cos d0 cos d cos(a - a0)``, ``x = cos d sin(a - a0) / cos c``,
+  ``y = (cos d0 sin d - sin d0 cos d cos(a - a0)) / cos c``; its area scale is
+  ``1 / cos^3 c`` (from memory), 1.001 within 2 deg of the centre.
 """
 
 from __future__ import annotations
@@ -43,7 +48,7 @@ from numpy.typing import NDArray
 from estimator import skymap as sm
 from estimator.errors import InputError
 from estimator.plot_base import DPI
-from estimator.sky_plot import plot_sky_map
+from estimator.sky_plot import ZOOM_MAX_SKY_FRACTION, plot_sky_map, sky_map_figure
 from estimator.skymap import SkyMap, sky_map_from_samples
 
 Array = NDArray[np.float64]
@@ -363,3 +368,96 @@ def test_plot_rejects_a_bad_truth(tmp_path: Path) -> None:
     skymap = SkyMap(nside=1, order="nested", probability=np.full(12, 1 / 12), bandwidth=1.0)
     with pytest.raises(InputError, match="truth"):
         plot_sky_map(skymap, tmp_path / "x.png", truth=(0.0, 3.0))
+
+
+# --- the zoom panel and the frame label ------------------------------------------------------
+
+def vmf_map(centre: tuple[float, float], area: float, seed: int) -> SkyMap:
+    rng = np.random.default_rng(seed)
+    ra, dec = to_radec(vmf_draws(unit(*centre), kappa_for_area(area), 5000, rng))
+    return sky_map_from_samples(ra, dec, rng=rng)
+
+
+def zoom_axes(fig: Any) -> Any:
+    panels = [a for a in fig.axes if a.get_xlabel() == "offset to the east (deg)"]
+    assert len(panels) <= 1
+    return panels[0] if panels else None
+
+
+def snyder_gnomonic(ra: float, dec: float, ra0: float, dec0: float) -> tuple[float, float]:
+    """Snyder (1987) Eqs. 22-3 to 22-5 (module docstring), in degrees."""
+    cos_c = np.sin(dec0) * np.sin(dec) + np.cos(dec0) * np.cos(dec) * np.cos(ra - ra0)
+    x = np.cos(dec) * np.sin(ra - ra0) / cos_c
+    y = (np.cos(dec0) * np.sin(dec) - np.sin(dec0) * np.cos(dec) * np.cos(ra - ra0)) / cos_c
+    return float(np.degrees(x)), float(np.degrees(y))
+
+
+@pytest.mark.parametrize(("area", "zoomed"), [(5.0, True), (200.0, True), (3000.0, False)])
+def test_zoom_panel_only_for_compact_maps(area: float, zoomed: bool) -> None:
+    """A compact 90% region (below 1% of the sky) gets a third axes beside the all-sky view
+    and its colour bar; a broad one does not."""
+    skymap = vmf_map((2.0, 0.3), area, seed=41)
+    assert bool(skymap.credible_area(0.9) / SKY_DEG2 < ZOOM_MAX_SKY_FRACTION) is zoomed
+    fig = sky_map_figure(skymap)
+    assert len(fig.axes) == (3 if zoomed else 2)
+    assert (zoom_axes(fig) is not None) is zoomed
+
+
+def test_zoom_panel_fills_with_the_region(tmp_path: Path) -> None:
+    """The 5 deg^2 cap (Fisher 1953 closed form) fills most of the panel, and the panel's
+    90% and 50% contours enclose the map's credible areas (gnomonic area scale 1.001)."""
+    skymap = vmf_map((4.1, -0.55), 5.0, seed=42)
+    fig = sky_map_figure(skymap, truth=(4.1, -0.55))
+    zoom = zoom_axes(fig)
+    left, right = zoom.get_xlim()
+    bottom, top = zoom.get_ylim()
+    assert left > right  # east (larger right ascension) to the left, common practice
+    diameter = 2.0 * np.degrees(np.arccos(1.0 - vmf_cap_area(kappa_for_area(5.0), 0.9)
+                                          / (2.0 * np.pi * np.degrees(1.0) ** 2)))
+    assert 1.0 < (left - right) / diameter < 2.0
+    assert top - bottom == pytest.approx(left - right)
+    contours = [c for c in zoom.collections if type(c).__name__ == "QuadContourSet"]
+    assert len(contours) == 2
+    for level, contour in zip((0.5, 0.9), contours, strict=True):
+        polygons = [q for path in contour.get_paths() for q in path.to_polygons()]
+        enclosed = sum(0.5 * abs(np.dot(q[:, 0], np.roll(q[:, 1], 1))
+                                 - np.dot(q[:, 1], np.roll(q[:, 0], 1))) for q in polygons)
+        assert enclosed == pytest.approx(skymap.credible_area(level), rel=0.15)
+    path = plot_sky_map(skymap, tmp_path / "zoom.png", truth=(4.1, -0.55))
+    assert png_size(path) == (round((8.6 + 4.7) * DPI), round(5.9 * DPI))
+
+
+@pytest.mark.parametrize(
+    ("centre", "offset"),
+    [((4.1, -0.55), (0.01, 0.004)), ((0.005, -0.2), (-0.02, 0.01)), ((0.3, 1.52), (2.0, 0.01))],
+)
+def test_zoom_truth_marker_at_the_gnomonic_position(centre: tuple[float, float],
+                                                    offset: tuple[float, float]) -> None:
+    """The star sits where Snyder's gnomonic equations put the truth, about the most
+    probable pixel (astropy-healpix centre); cases across the RA = 0 seam and by the pole."""
+    skymap = vmf_map(centre, 20.0, seed=43)
+    truth = (float(np.mod(centre[0] + offset[0], 2 * np.pi)), centre[1] + offset[1])
+    zoom = zoom_axes(sky_map_figure(skymap, truth=truth))
+    lon, lat = ahp.healpix_to_lonlat(np.argmax(skymap.probability), skymap.nside,
+                                     order="nested")
+    expected = snyder_gnomonic(*truth, lon.to_value(u.rad), lat.to_value(u.rad))
+    stars = [line for line in zoom.lines if line.get_marker() == "*"]
+    assert len(stars) == 1
+    got = (float(stars[0].get_xdata()[0]), float(stars[0].get_ydata()[0]))
+    assert got == pytest.approx(expected, abs=1e-9)
+    left, right = zoom.get_xlim()
+    bottom, top = zoom.get_ylim()
+    assert right < 0.0 < left  # the window holds the most probable pixel, at the origin
+    assert bottom < 0.0 < top
+
+
+def test_frame_is_written_on_the_map() -> None:
+    skymap = vmf_map((1.0, 0.2), 3000.0, seed=44)
+    texts = [t.get_text() for t in sky_map_figure(skymap).texts]
+    assert any("J2000" in t for t in texts)
+    texts = [t.get_text() for t in sky_map_figure(skymap, frame="mean of date").texts]
+    assert any("mean of date" in t for t in texts)
+    assert not any("J2000" in t for t in texts)
+    with pytest.raises(InputError) as info:
+        sky_map_figure(skymap, frame=" ")
+    assert info.value.field == "frame"

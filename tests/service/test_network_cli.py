@@ -311,7 +311,8 @@ def test_network_drill_snr_and_delays(capsys, tmp_path):
         assert snrs[name] == pytest.approx(expected, rel=1e-3), name
     assert math.sqrt(sum(s * s for s in snrs.values())) == pytest.approx(10.0, rel=1e-3)
 
-    ra, dec, gmst = truth[0]["right_ascension"], truth[0]["declination"], truth[0]["gmst"]
+    ra, dec = truth[0]["right_ascension_of_date"], truth[0]["declination_of_date"]
+    gmst = truth[0]["gmst"]
     n = np.array([math.cos(dec) * math.cos(ra - gmst), math.cos(dec) * math.sin(ra - gmst),
                   math.sin(dec)])  # fmt: skip
     sites = {s["name"]: s for s in _shipped_geometry()}
