@@ -58,6 +58,9 @@ NETWORK_START_DEPTH = 13.06
 #: 1e-4 quantile of the log-posterior lies 11.4 below its median: half the chi^2_7
 #: quantiles, common practice); it is regrouped while burning in.
 STRANDED_GAP_7D = 15.0
+#: At most about this many posterior samples are kept (the sky map, the corner plot and
+#: samples.csv need no more; the effective sample size is typically 2000-5000).
+MAX_SAMPLES = 16_000
 
 
 @dataclass
@@ -279,6 +282,7 @@ def sample_network_posterior(
             periods=PERIODS,
             check_growth=0.25,
             stranded_gap=STRANDED_GAP_7D,
+            max_samples=MAX_SAMPLES,
         )
         sampling_time += time.perf_counter() - clock
         clock = time.perf_counter()

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from typing import NamedTuple
 
 import numpy as np
 from numpy.typing import NDArray
@@ -110,9 +111,8 @@ class _Binned:
         return self._cut_cache[cut]
 
 
-@dataclass(frozen=True)
-class MassTerms:
-    """Mass-dependent factors shared by every detector's binned overlap."""
+class MassTerms(NamedTuple):
+    """Mass-dependent factors shared by every detector's binned overlap (a tuple: cheap)."""
 
     log_mc: Array
     eta: Array

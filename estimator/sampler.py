@@ -183,6 +183,7 @@ def run_ensemble(
     periods: Mapping[str, float] | None = None,
     check_growth: float = 0.0,
     stranded_gap: float = STRANDED_GAP,
+    max_samples: int | None = None,
 ) -> ChainResult:
     """Run emcee from ``start`` until converged or ``max_steps``.
 
@@ -214,6 +215,10 @@ def run_ensemble(
     stranded_gap
         A walker whose best log-posterior over a check interval stays this far below
         the ensemble's median is moved onto another walker while burning in.
+    max_samples
+        When given, the kept chain is thinned further so that at most about this
+        many samples come out (a long, well-mixed chain holds far more than its
+        effective sample size).
     """
     names = tuple(names)
     walkers, ndim = start.shape
@@ -292,6 +297,8 @@ def run_ensemble(
     tau = np.where(np.isfinite(tau), tau, float(steps))
     burn = max(reset_at, min(int(2 * np.max(tau)), steps // 2))
     thin = max(1, int(0.5 * np.min(tau)))
+    if max_samples is not None:
+        thin = max(thin, int(np.ceil((steps - burn) * walkers / max_samples)))
     chain = sampler.get_chain()
     if wrap:
         chain = _wrapped(chain, wrap, _centres(chain[-1], wrap))
