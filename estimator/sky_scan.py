@@ -35,7 +35,7 @@ from .conditioning import DetectorData
 from .network_model import SiteGeometry
 from .waveform import isco_frequency, symmetric_mass_ratio, taylorf2_phase
 
-__all__ = ["SkyScan", "equal_area_cells", "fibonacci_sphere", "sky_scan"]
+__all__ = ["SkyScan", "equal_area_cells", "fibonacci_sphere", "filter_output", "sky_scan"]
 
 Array = NDArray[np.float64]
 
@@ -101,7 +101,7 @@ class SkyScan:
         return int(np.argmax(self.snr2))
 
 
-def _filter_output(
+def filter_output(
     data: DetectorData, chirp_mass: float, mass_ratio: float, reference_time: float, dt: float
 ) -> tuple[Array, NDArray[np.complex128], float]:
     """Times (relative to ``reference_time``), ``z0(t)`` and ``sigma`` of one detector.
@@ -156,7 +156,7 @@ def sky_scan(
     """
     dt = 1.0 / 8192.0
     outputs = [
-        _filter_output(d, chirp_mass, mass_ratio, reference_time, dt) for d in datasets
+        filter_output(d, chirp_mass, mass_ratio, reference_time, dt) for d in datasets
     ]
     n_det = len(datasets)
     max_delay = 0.0215  # s, more than the Earth's diameter over c (42.5 ms / 2)

@@ -44,6 +44,7 @@ def plot_title(key: str) -> tuple[str, str, str] | None:
 
 _QUALITY_TITLES: Mapping[str, str] = {
     "coincidence": "Data agree with the network model",
+    "unexplained": "No signal left unexplained",
     "residual_variance": "Noise level matches the spectrum",
     "residual_normality": "Residual noise is Gaussian",
     "transient": "No glitch near the signal",
