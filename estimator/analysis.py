@@ -10,7 +10,7 @@ quantities the report shows.
 from __future__ import annotations
 
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -40,6 +40,7 @@ __all__ = [
     "analysis_prior",
     "run_analysis",
     "settings_dict",
+    "stage_progress",
 ]
 
 Array = NDArray[np.float64]
@@ -78,13 +79,22 @@ class AnalysisResult:
         return self.data.f_high
 
 
-def _report(progress: Progress | None, stage: str) -> Callable[[float], None]:
+def stage_progress(
+    progress: Progress | None,
+    stage: str,
+    stages: Sequence[tuple[str, float]] = _STAGES,
+) -> Callable[[float], None]:
+    """A ``fraction -> None`` callback reporting ``stage``'s progress within ``stages``.
+
+    ``stages`` lists ``(name, share of the whole run)`` in order; the overall fraction
+    is the shares of the earlier stages plus this one's share times ``fraction``.
+    """
     done = 0.0
-    for name, share in _STAGES:
+    for name, share in stages:
         if name == stage:
             break
         done += share
-    share = dict(_STAGES)[stage]
+    share = dict(stages)[stage]
 
     def call(fraction: float) -> None:
         if progress is not None:
@@ -172,7 +182,7 @@ def run_analysis(
         f_high=f_high,
         time_window=settings.time_window,
         taper_duration=settings.taper_duration,
-        progress=_report(progress, "search"),
+        progress=stage_progress(progress, "search"),
         mass_ratios=tuple(
             q
             for q in (1.0, 0.5, 0.25)
@@ -209,7 +219,7 @@ def run_analysis(
         chirp_mass_range=mc_range,
         time_window=settings.time_window,
         n_bins=settings.n_bins,
-        progress=_report(progress, "fiducial"),
+        progress=stage_progress(progress, "fiducial"),
         exact=exact,
     )
     fisher = fisher_estimate(datasets, fiducial.params)
@@ -227,9 +237,9 @@ def run_analysis(
         settings=settings,
         rng=rng,
         seed=seed,
-        progress=_report(progress, "sampling"),
+        progress=stage_progress(progress, "sampling"),
     )
-    _report(progress, "check")(1.0)
+    stage_progress(progress, "check")(1.0)
     notes.extend(run.notes)
     chain, coords, binned, check = run.chain, run.coordinates, run.likelihood, run.check
     timings["sampling"] = run.sampling_time

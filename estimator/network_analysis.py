@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
-from .analysis import Progress, analysis_prior
+from .analysis import Progress, analysis_prior, stage_progress
 from .conditioning import DetectorData, condition
 from .coordinates import reference_frequency
 from .data import NoiseSpectrum, StrainSegment
@@ -90,18 +90,7 @@ class NetworkResult:
 
 
 def _stage(progress: Progress | None, stage: str) -> Callable[[float], None]:
-    done = 0.0
-    for name, share in _STAGES:
-        if name == stage:
-            break
-        done += share
-    share = dict(_STAGES)[stage]
-
-    def call(fraction: float) -> None:
-        if progress is not None:
-            progress(stage, fraction, done + share * min(max(fraction, 0.0), 1.0))
-
-    return call
+    return stage_progress(progress, stage, _STAGES)
 
 
 def _share(report: Callable[[float], None], k: int, n: int) -> Callable[[float], None]:

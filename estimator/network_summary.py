@@ -27,7 +27,13 @@ from .precession import of_date_to_j2000
 from .settings import settings_dict
 from .skymap import SkyMap
 from .stats import credible_interval, probability_below
-from .summary import CREDIBLE_LEVEL, NEUTRON_STAR_LIMIT, PARAMETER_LABELS, PARAMETER_UNITS
+from .summary import (
+    CREDIBLE_LEVEL,
+    NEUTRON_STAR_LIMIT,
+    PARAMETER_LABELS,
+    PARAMETER_UNITS,
+    check_dict,
+)
 from .waveform import component_masses
 
 __all__ = [
@@ -217,16 +223,7 @@ def build_network_summary(
                 "points": int(result.scan.snr2.size),
                 "best_coherent_snr": float(np.sqrt(np.max(result.scan.snr2))),
             },
-            "likelihood_check": {
-                "draws": result.check.draws,
-                "max_abs_difference": result.check.max_abs_difference,
-                "tolerance": result.check.tolerance,
-                "passed": result.check.passed,
-                "bins": result.check.bins,
-                "refinements": result.check.refinements,
-                "reweighted_with_exact_likelihood": result.check.reweighted,
-                "reweight_efficiency": result.check.reweight_efficiency,
-            },
+            "likelihood_check": check_dict(result.check),
             "timings_s": {k: round(float(v), 3) for k, v in result.timings.items()},
         },
         "settings": {

@@ -21,6 +21,7 @@ from numpy.typing import NDArray
 from . import __version__
 from .analysis import AnalysisResult, settings_dict
 from .cosmology import redshift_from_distance
+from .posterior import LikelihoodCheck
 from .priors import draw_orientation
 from .quality import assess_quality
 from .stats import credible_interval, probability_below
@@ -32,6 +33,7 @@ __all__ = [
     "PARAMETER_LABELS",
     "PARAMETER_UNITS",
     "build_summary",
+    "check_dict",
     "derive_samples",
 ]
 
@@ -110,6 +112,20 @@ def derive_samples(result: AnalysisResult, rng: np.random.Generator) -> dict[str
     return {k: np.asarray(v, dtype=float) for k, v in out.items()}
 
 
+def check_dict(check: LikelihoodCheck) -> dict[str, Any]:
+    """The binned-vs-exact likelihood check as ``summary.json`` records it."""
+    return {
+        "draws": check.draws,
+        "max_abs_difference": check.max_abs_difference,
+        "tolerance": check.tolerance,
+        "passed": check.passed,
+        "bins": check.bins,
+        "refinements": check.refinements,
+        "reweighted_with_exact_likelihood": check.reweighted,
+        "reweight_efficiency": check.reweight_efficiency,
+    }
+
+
 def _interval(x: Array, unit: str) -> dict[str, Any]:
     median, lower, upper = credible_interval(x, CREDIBLE_LEVEL)
     return {"median": median, "lower": lower, "upper": upper, "unit": unit}
@@ -177,16 +193,7 @@ def build_summary(
             "burn_in": chain.burn_in,
             "thin": chain.thin,
             "converged": chain.converged,
-            "likelihood_check": {
-                "draws": result.check.draws,
-                "max_abs_difference": result.check.max_abs_difference,
-                "tolerance": result.check.tolerance,
-                "passed": result.check.passed,
-                "bins": result.check.bins,
-                "refinements": result.check.refinements,
-                "reweighted_with_exact_likelihood": result.check.reweighted,
-                "reweight_efficiency": result.check.reweight_efficiency,
-            },
+            "likelihood_check": check_dict(result.check),
             "timings_s": {k: round(float(v), 3) for k, v in result.timings.items()},
         },
         "settings": {
