@@ -26,7 +26,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import emcee
 import numpy as np
@@ -40,7 +40,7 @@ from .likelihood import log_i0
 from .network_model import ExactNetworkLikelihood, NetworkLikelihood, SiteGeometry
 from .network_moves import SkyJumpMove
 from .network_prior import PERIODS, NetworkCoordinates, NetworkPrior
-from .posterior import LikelihoodCheck
+from .posterior import LikelihoodCheck, reweight_exactly
 from .sampler import ChainResult, run_ensemble
 from .settings import AnalysisSettings
 from .sky_scan import SkyScan
@@ -306,17 +306,11 @@ def sample_network_posterior(
     samples = coords.to_physical(chain.samples())
     log_like = binned.log_likelihood(samples)
     if not check.passed:
-        exact_log_like = exact.log_likelihood(samples)
-        log_w = exact_log_like - log_like
-        w = np.exp(log_w - np.max(log_w))
-        efficiency = float(w.sum() ** 2 / (w.size * np.sum(w**2)))
-        pick = rng.choice(w.size, size=w.size, replace=True, p=w / w.sum())
-        samples = {k: v[pick] for k, v in samples.items()}
-        log_like = exact_log_like[pick]
-        check = replace(check, reweighted=True, reweight_efficiency=efficiency)
+        samples, log_like, check = reweight_exactly(samples, log_like, exact, check, rng)
         notes.append(
             "relative-binning likelihood still differed from the exact one after refinement: "
-            f"the samples were reweighted with the exact likelihood (efficiency {efficiency:.2f})"
+            "the samples were reweighted with the exact likelihood "
+            f"(efficiency {check.reweight_efficiency:.2f})"
         )
     if not chain.converged:
         notes.append(

@@ -23,13 +23,13 @@ from .conditioning import DetectorData
 from .coordinates import ArrivalTime, reference_frequency
 from .errors import InputError
 from .fisher import FisherEstimate, mass_ratio_of_eta
-from .likelihood import ExactLikelihood
+from .likelihood import ExactLikelihood, Likelihood
 from .priors import InspiralPrior
 from .relbin import RelativeBinningLikelihood
 from .sampler import ChainResult, run_ensemble
 from .settings import AnalysisSettings
 
-__all__ = ["LikelihoodCheck", "PosteriorRun", "sample_posterior"]
+__all__ = ["LikelihoodCheck", "PosteriorRun", "reweight_exactly", "sample_posterior"]
 
 Array = NDArray[np.float64]
 
@@ -131,10 +131,10 @@ def _start_walkers(
     raise InputError(msg, field="prior")
 
 
-def _reweight_exactly(
+def reweight_exactly(
     samples: dict[str, Array],
     binned_log_like: Array,
-    exact: ExactLikelihood,
+    exact: Likelihood,
     check: LikelihoodCheck,
     rng: np.random.Generator,
 ) -> tuple[dict[str, Array], Array, LikelihoodCheck]:
@@ -276,7 +276,7 @@ def sample_posterior(
     log_like = binned.log_likelihood(samples)
     if not check.passed:
         clock = time.perf_counter()
-        samples, log_like, check = _reweight_exactly(samples, log_like, exact, check, rng)
+        samples, log_like, check = reweight_exactly(samples, log_like, exact, check, rng)
         check_time += time.perf_counter() - clock
         notes.append(
             "relative-binning likelihood still differed from the exact one after "

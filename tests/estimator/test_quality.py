@@ -240,12 +240,12 @@ def test_reweighting_recovers_the_target_distribution() -> None:
     integral, derived here); 20000 samples give a mean within 0.06 of 1 (five
     standard errors of the ~7400 effective samples: false alarm below 1e-6).
     """
-    from estimator.posterior import LikelihoodCheck, _reweight_exactly
+    from estimator.posterior import LikelihoodCheck, reweight_exactly
 
     rng = np.random.default_rng(4)
     x = rng.standard_normal(20_000)
     check = LikelihoodCheck(100, 1.0, 0.05, False, 96, 2)
-    samples, log_like, out = _reweight_exactly(
+    samples, log_like, out = reweight_exactly(
         {"x": x}, -0.5 * x**2, _ShiftedNormal(), check, rng  # type: ignore[arg-type]
     )
     assert out.reweighted
