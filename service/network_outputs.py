@@ -8,9 +8,6 @@ The report is the one-detector report's template with the network's sections
 
 from __future__ import annotations
 
-import json
-import shutil
-import tempfile
 import time
 from collections.abc import Mapping
 from pathlib import Path
@@ -29,11 +26,10 @@ from .pipeline import (
     Progress,
     _corner,
     _plot_pool,
-    _replace_folder,
     _with_unit,
     check_output_folder,
+    write_folder,
 )
-from .report import image_data_uri, render_report
 
 __all__ = ["NETWORK_SAMPLE_COLUMNS", "network_output_files", "write_network_outputs"]
 
@@ -154,10 +150,8 @@ def write_network_outputs(
     summary = build_network_summary(
         result, derived, views=views, snrs=snrs, skymap=skymap, inputs=inputs, label=label
     )
-    out_dir.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=out_dir.parent))
-    tmp.chmod(0o755)
-    try:
+
+    def write_data(tmp: Path) -> Mapping[str, str]:
         table = np.column_stack([derived[c] for c in NETWORK_SAMPLE_COLUMNS])
         fmt = ["%.10g"] * len(NETWORK_SAMPLE_COLUMNS)
         fmt[NETWORK_SAMPLE_COLUMNS.index("coalescence_time")] = "%.6f"
@@ -169,21 +163,9 @@ def write_network_outputs(
             comments="",
             fmt=fmt,
         )
-        files = _make_plots(result, derived, views, skymap, tmp)
-        summary["diagnostics"]["timings_s"]["report"] = round(time.perf_counter() - clock, 3)
-        (tmp / "summary.json").write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
-        images = {key: image_data_uri(tmp / name) for key, name in files.items()}
-        downloads = {
-            "samples.csv": "samples.csv",
-            "summary.json": "summary.json",
-            **{name: name for name in files.values()},
-        }
-        html = render_report(summary, images=images, downloads=downloads)
-        (tmp / "report.html").write_text(html, encoding="utf-8")
-        _replace_folder(tmp, out_dir)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
+        return _make_plots(result, derived, views, skymap, tmp)
+
+    write_folder(out_dir, summary, write_data, clock=clock)
     if progress is not None:
         progress("done", 1.0, 1.0)
     return summary

@@ -39,6 +39,7 @@ __all__ = [
     "AnalysisRequest",
     "analyze_files",
     "check_output_folder",
+    "write_folder",
     "write_outputs",
 ]
 
@@ -255,19 +256,43 @@ def write_outputs(
     summary = build_summary(result, derived, inputs=inputs, label=label)
     out_dir = Path(out_dir)
     check_output_folder(out_dir, OUTPUT_FILES)
+
+    def write_data(tmp: Path) -> Mapping[str, str]:
+        _write_samples(tmp / "samples.csv", derived)
+        _make_plots(result, derived, tmp)
+        return PLOT_FILES
+
+    write_folder(out_dir, summary, write_data, clock=clock)
+    if progress is not None:
+        progress("done", 1.0, 1.0)
+    return summary
+
+
+def write_folder(
+    out_dir: Path,
+    summary: dict[str, Any],
+    write_data: Callable[[Path], Mapping[str, str]],
+    *,
+    clock: float,
+) -> None:
+    """Fill a temporary sibling of ``out_dir`` and move it into place (all or nothing).
+
+    ``write_data(folder)`` writes the samples and plots and returns the report's
+    figure keys -> file names; then ``summary.json`` (with the report stage's time
+    since ``clock``) and ``report.html`` are written, and the folder replaces ``out_dir``.
+    """
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.partial-", dir=out_dir.parent))
     tmp.chmod(0o755)  # mkdtemp makes it private; the output is an ordinary folder
     try:
-        _write_samples(tmp / "samples.csv", derived)
-        _make_plots(result, derived, tmp)
+        files = write_data(tmp)
         summary["diagnostics"]["timings_s"]["report"] = round(time.perf_counter() - clock, 3)
         (tmp / "summary.json").write_text(json.dumps(summary, indent=2) + "\n", encoding="utf-8")
-        images = {key: image_data_uri(tmp / name) for key, name in PLOT_FILES.items()}
+        images = {key: image_data_uri(tmp / name) for key, name in files.items()}
         downloads = {
             "samples.csv": "samples.csv",
             "summary.json": "summary.json",
-            **{name: name for name in PLOT_FILES.values()},
+            **{name: name for name in files.values()},
         }
         html = render_report(summary, images=images, downloads=downloads)
         (tmp / "report.html").write_text(html, encoding="utf-8")
@@ -275,9 +300,6 @@ def write_outputs(
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
-    if progress is not None:
-        progress("done", 1.0, 1.0)
-    return summary
 
 
 def check_output_folder(target: Path, expected: set[str]) -> None:
