@@ -22,10 +22,13 @@ from .data import NoiseSpectrum, StrainSegment
 from .errors import InputError
 from .fiducial import Fiducial, find_fiducial
 from .fisher import FisherEstimate, fisher_estimate
+from .gating import GlitchScan, find_glitches, gate_data
 from .likelihood import ExactLikelihood
+from .models import model_top, resolve_model
 from .posterior import LikelihoodCheck, sample_posterior
 from .priors import InspiralPrior
 from .relbin import RelativeBinningLikelihood
+from .relbin_model import ModelRelativeBinning
 from .sampler import ChainResult
 from .search import SearchResult, search_chirp_mass, template_duration
 from .settings import AnalysisSettings, settings_dict
@@ -38,6 +41,7 @@ __all__ = [
     "LikelihoodCheck",
     "Progress",
     "analysis_prior",
+    "raised_low_frequency",
     "run_analysis",
     "settings_dict",
     "stage_progress",
@@ -66,12 +70,18 @@ class AnalysisResult:
     fisher: FisherEstimate  # at the fiducial; the instant preview of the widths
     chain: ChainResult  # in the sampler's coordinates, see ``coordinates``
     coordinates: ArrivalTime
-    likelihood: RelativeBinningLikelihood
+    likelihood: RelativeBinningLikelihood | ModelRelativeBinning
     samples: dict[str, Array]
     sample_log_likelihood: Array
     check: LikelihoodCheck
     timings: dict[str, float]
     notes: list[str] = field(default_factory=list)
+    #: The waveform model used (``settings.model`` resolved, see :mod:`estimator.models`).
+    model: str = "taylorf2"
+    #: The glitch scan and the gates applied (None when gating was off).
+    glitches: GlitchScan | None = None
+    #: ``(asked, used)`` low-frequency cut when the segment was too short for the asked one.
+    f_low_raised: tuple[float, float] | None = None
 
     @property
     def f_high(self) -> float:
@@ -111,7 +121,46 @@ def analysis_prior(settings: AnalysisSettings) -> InspiralPrior:
         component_mass=settings.component_mass_range,
         distance_max=settings.distance_max,
         time_window=settings.time_window,
+        spin_max=settings.spin_max,
     )
+
+
+#: Seconds before and after the coalescence time that gating never touches: the
+#: signal's loudest part (a glitch there stays a warning of the transient check).
+PROTECT_BEFORE = 0.25
+PROTECT_AFTER = 0.1
+
+
+def raised_low_frequency(
+    found: SearchResult, f_low: float, available: float, top: float, source: str | None
+) -> float | None:
+    """The low-frequency cut at which the signal fits in ``available`` seconds, or None.
+
+    ``None`` when ``f_low`` already fits. The signal's time above ``f`` scales as
+    ``f^{-8/3}`` (the Newtonian chirp time, Sathyaprakash & Dhurandhar 1991), so the
+    cut that fits is ``f_low (needed/available)^{3/8}``, plus 5% for the higher PN
+    terms. Raises :class:`InputError` when that leaves less than an octave below
+    the model's top frequency ``top`` (nothing useful to analyse).
+    """
+    needed = template_duration(found.chirp_mass, found.mass_ratio, f_low)
+    if needed <= available:
+        return None
+    if available <= 0.0:
+        msg = (
+            "the trigger time lies inside the segment's start taper: no data precede the "
+            "signal; supply a segment that starts before the trigger"
+        )
+        raise InputError(msg, source=source, field="trigger_time")
+    f_ok = f_low * (needed / available) ** (3.0 / 8.0) * 1.05
+    if f_ok > 0.5 * top:
+        msg = (
+            f"segment too short for this signal: only {available:.2f} s of untapered data "
+            f"precede the trigger, so the analysis could start no lower than {f_ok:.0f} Hz, "
+            f"leaving less than an octave below the signal's end near {top:.0f} Hz (a chirp "
+            f"mass of {found.chirp_mass:.4g} Msun); supply a longer segment"
+        )
+        raise InputError(msg, source=source, field="f_low")
+    return float(np.ceil(f_ok))
 
 
 def run_analysis(
@@ -191,22 +240,39 @@ def run_analysis(
         or (settings.mass_ratio_range[1],),
     )
     timings["search"] = time.perf_counter() - clock
-    needed = template_duration(found.chirp_mass, found.mass_ratio, settings.f_low)
+    model = resolve_model(
+        settings.model, found.chirp_mass, found.mass_ratio, data.frequencies, data.psd
+    )
     available = settings.trigger_time - segment.start_time - settings.taper_duration
-    if needed > available:
-        f_ok = settings.f_low * (needed / available) ** (3.0 / 8.0) * 1.05
-        msg = (
-            f"segment too short for the band: a chirp mass of {found.chirp_mass:.4g} Msun "
-            f"stays above f_low = {settings.f_low:g} Hz for {needed:.1f} s, but only "
-            f"{available:.1f} s of data precede the trigger; raise f_low to about "
-            f"{f_ok:.0f} Hz or supply a longer segment"
+    top = min(f_high, float(model_top(model, found.chirp_mass, found.mass_ratio)))
+    f_raised = raised_low_frequency(found, settings.f_low, available, top, segment.source)
+    f_low_raised = None
+    if f_raised is not None:
+        f_low_raised = (settings.f_low, f_raised)
+        data = condition(
+            segment, spectrum, f_low=f_raised, f_high=f_high, taper_duration=settings.taper_duration
         )
-        raise InputError(msg, source=segment.source, field="f_low")
+        notes.append(
+            f"the segment starts too close to the signal for f_low = {settings.f_low:g} Hz "
+            f"({available:.1f} s of untapered data before the trigger): the low-frequency "
+            f"cut was raised to {f_raised:g} Hz"
+        )
+    glitches = None
+    if settings.gating:
+        tc_gps = found.coalescence_time
+        glitches = find_glitches(data, protect=(tc_gps - PROTECT_BEFORE, tc_gps + PROTECT_AFTER))
+        if glitches.gates:
+            data = gate_data(data, glitches.gates)
+            where = ", ".join(f"{g.centre - tc_gps:+.2f} s" for g in glitches.gates)
+            notes.append(
+                f"{len(glitches.gates)} loud short glitch(es) away from the signal gated "
+                f"(inverse Tukey window of the whitened data) at {where} from coalescence"
+            )
 
     clock = time.perf_counter()
     reference = settings.trigger_time
     datasets = [data]
-    exact = ExactLikelihood(datasets, reference)
+    exact = ExactLikelihood(datasets, reference, model=model)
     fiducial = find_fiducial(
         datasets,
         reference,
@@ -221,8 +287,9 @@ def run_analysis(
         n_bins=settings.n_bins,
         progress=stage_progress(progress, "fiducial"),
         exact=exact,
+        model=model,
     )
-    fisher = fisher_estimate(datasets, fiducial.params)
+    fisher = fisher_estimate(datasets, fiducial.params, model=model)
     timings["fiducial"] = time.perf_counter() - clock
     if preview is not None:
         preview(fisher)
@@ -238,6 +305,7 @@ def run_analysis(
         rng=rng,
         seed=seed,
         progress=stage_progress(progress, "sampling"),
+        model=model,
     )
     stage_progress(progress, "check")(1.0)
     notes.extend(run.notes)
@@ -262,4 +330,7 @@ def run_analysis(
         check=check,
         timings=timings,
         notes=notes,
+        model=model,
+        glitches=glitches,
+        f_low_raised=f_low_raised,
     )

@@ -22,11 +22,13 @@ from numpy.typing import NDArray
 from .conditioning import DetectorData
 from .likelihood import PARAMETER_NAMES, ExactLikelihood
 from .relbin import RelativeBinningLikelihood
+from .relbin_model import ModelRelativeBinning, binned_likelihood
 from .waveform import chirp_time
 
 __all__ = ["Fiducial", "curvature_covariance", "find_fiducial"]
 
 Array = NDArray[np.float64]
+AnyLikelihood = ExactLikelihood | RelativeBinningLikelihood | ModelRelativeBinning
 
 
 @dataclass(frozen=True)
@@ -47,7 +49,7 @@ def _scales(chirp_mass: float, f_low: float) -> Array:
 
 
 def _profile_distance(
-    like: ExactLikelihood | RelativeBinningLikelihood, x: Array, reference: Mapping[str, float]
+    like: AnyLikelihood, x: Array, reference: Mapping[str, float]
 ) -> tuple[float, float]:
     """Log-likelihood maximised over effective distance, and that distance.
 
@@ -79,6 +81,7 @@ def find_fiducial(
     exact_iterations: int = 40,
     progress: Callable[[float], None] | None = None,
     exact: ExactLikelihood | None = None,
+    model: str = "taylorf2",
 ) -> Fiducial:
     """Maximise the likelihood over (chirp mass, q, t_c), distance profiled out.
 
@@ -87,9 +90,12 @@ def find_fiducial(
     start
         Starting point by name (``chirp_mass``, ``mass_ratio``, ``coalescence_time``
         relative to ``reference_time``).
+    model
+        Waveform model (:mod:`estimator.models`); ``exact``, when given, must use it.
+        The fiducial is non-spinning (the sampler explores the spins).
     """
     if exact is None:
-        exact = ExactLikelihood(datasets, reference_time)
+        exact = ExactLikelihood(datasets, reference_time, model=model)
     f_low = min(d.f_low for d in datasets)
     scale = _scales(float(start["chirp_mass"]), f_low)[[0, 1, 3]]
     lo = np.array([chirp_mass_range[0], mass_ratio_range[0], -time_window])
@@ -98,7 +104,7 @@ def find_fiducial(
     evaluations = 0
 
     def objective(
-        like: ExactLikelihood | RelativeBinningLikelihood, transform: Array
+        like: AnyLikelihood, transform: Array
     ) -> Callable[[Array], float]:
         def f(u: Array) -> float:
             nonlocal evaluations
@@ -111,8 +117,12 @@ def find_fiducial(
         return f
 
     _, dist = _profile_distance(
-        RelativeBinningLikelihood(
-            datasets, reference_time, {**start, "effective_distance": 1.0}, n_bins=n_bins
+        binned_likelihood(
+            datasets,
+            reference_time,
+            {**start, "effective_distance": 1.0},
+            n_bins=n_bins,
+            model=model,
         ),
         x,
         start,
@@ -131,9 +141,9 @@ def find_fiducial(
             "effective_distance": dist,
             "coalescence_time": x[2],
         }
-        like: ExactLikelihood | RelativeBinningLikelihood
+        like: AnyLikelihood
         if r < rounds:
-            like = RelativeBinningLikelihood(datasets, reference_time, fid, n_bins=n_bins)
+            like = binned_likelihood(datasets, reference_time, fid, n_bins=n_bins, model=model)
             # Whiten the coordinates with the local curvature, so the simplex moves
             # along the chirp-mass / mass-ratio ridge instead of across it.
             for _ in range(2):

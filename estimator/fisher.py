@@ -25,6 +25,7 @@ from numpy.typing import NDArray
 
 from .conditioning import DetectorData
 from .likelihood import newtonian_amplitude
+from .models import model_parts
 from .waveform import isco_frequency, phase_of_eta, symmetric_mass_ratio
 
 __all__ = [
@@ -151,7 +152,11 @@ DERIVATIVE_PARAMETERS = (
 
 
 def fisher_matrix(
-    datasets: Sequence[DetectorData], chirp_mass: float, eta: float, effective_distance: float
+    datasets: Sequence[DetectorData],
+    chirp_mass: float,
+    eta: float,
+    effective_distance: float,
+    model: str = "taylorf2",
 ) -> tuple[Array, float]:
     """Fisher matrix over :data:`DERIVATIVE_PARAMETERS`, and ``<h|h>``.
 
@@ -165,8 +170,14 @@ def fisher_matrix(
     is a boundary term, neglected as is common practice). Only the data's
     frequencies, PSDs and bands are used: the Fisher matrix is an expectation
     over noise, not a fit to the data.
+
+    For a model with a general amplitude factor ``S`` (``model="merger"``,
+    :mod:`estimator.models`) the derivatives gain ``d ln S/d theta`` beside
+    ``-i dPsi/d theta``, both by central differences (one-sided at ``eta = 1/4``).
     """
     mc, dist = float(chirp_mass), float(effective_distance)
+    if model != "taylorf2":
+        return _model_fisher(datasets, mc, eta, dist, model)
     f_isco = float(isco_frequency(mc * eta ** (-0.6)))
     gamma = np.zeros((5, 5))
     hh = 0.0
@@ -192,8 +203,41 @@ def fisher_matrix(
     return gamma, hh
 
 
+def _model_fisher(
+    datasets: Sequence[DetectorData], mc: float, eta: float, dist: float, model: str
+) -> tuple[Array, float]:
+    """:func:`fisher_matrix` for a model with a general amplitude (central differences)."""
+    gamma = np.zeros((5, 5))
+    hh = 0.0
+    step = _ETA_STEP
+    eta_hi = min(eta + step, 0.25)
+    eta_lo = eta_hi - 2.0 * step
+    masses = np.array([mc, mc * np.exp(_LOG_STEP), mc * np.exp(-_LOG_STEP), mc, mc])
+    etas = np.array([eta, eta, eta, eta_hi, eta_lo])
+    q = mass_ratio_of_eta(etas)
+    for data in datasets:
+        f = data.frequencies
+        factor, psi = model_parts(model, f, masses, q)
+        keep = factor[0] > 0.0
+        if not np.any(keep):
+            continue
+        f, factor, psi = f[keep], factor[:, keep], psi[:, keep]
+        log_s = np.log(np.maximum(factor, 1e-300))
+        d_log_mc = ((log_s[1] - log_s[2]) - 1j * (psi[1] - psi[2])) / (2.0 * _LOG_STEP)
+        d_eta = ((log_s[3] - log_s[4]) - 1j * (psi[3] - psi[4])) / (eta_hi - eta_lo)
+        amp = newtonian_amplitude(np.array(mc), np.array(dist))
+        h = amp * f ** (-7.0 / 6.0) * factor[0] * np.exp(-1j * psi[0])
+        derivs = np.array(
+            [(5.0 / 6.0 + d_log_mc) * h, d_eta * h, -2j * np.pi * f * h, -h, 1j * h]
+        )
+        weight = 4.0 * data.df / data.psd[keep]
+        gamma += np.real((derivs * weight) @ np.conj(derivs).T)
+        hh += float(np.sum(weight * np.abs(h) ** 2))
+    return gamma, hh
+
+
 def fisher_estimate(
-    datasets: Sequence[DetectorData], params: Mapping[str, float]
+    datasets: Sequence[DetectorData], params: Mapping[str, float], model: str = "taylorf2"
 ) -> FisherEstimate:
     """The Fisher estimate at ``params`` (module docstring).
 
@@ -213,7 +257,7 @@ def fisher_estimate(
     mc = float(params["chirp_mass"])
     eta = float(symmetric_mass_ratio(float(params["mass_ratio"])))
     dist = float(params["effective_distance"])
-    gamma, hh = fisher_matrix(datasets, mc, eta, dist)
+    gamma, hh = fisher_matrix(datasets, mc, eta, dist, model)
     if hh <= 0.0:
         msg = "the model has no power in the analysis band; no Fisher estimate"
         raise ValueError(msg)

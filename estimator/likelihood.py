@@ -28,6 +28,7 @@ from numpy.typing import NDArray
 from scipy.special import i0e
 
 from .conditioning import DetectorData
+from .models import model_parts
 from .waveform import (
     MPC_SECONDS,
     MSUN_SECONDS,
@@ -42,6 +43,7 @@ __all__ = [
     "Likelihood",
     "log_i0",
     "newtonian_amplitude",
+    "spin_arrays",
 ]
 
 Array = NDArray[np.float64]
@@ -59,6 +61,16 @@ class Likelihood(Protocol):
     def log_likelihood(self, params: Params) -> Array:
         """Log-likelihood ratio against pure noise, shape ``(n,)``."""
         ...
+
+
+def spin_arrays(params: Params, n: int) -> tuple[Array, Array] | tuple[None, None]:
+    """``(spin1, spin2)`` of ``params`` as ``(n,)`` arrays, or ``(None, None)`` without spins."""
+    if "spin1" not in params and "spin2" not in params:
+        return None, None
+    return (
+        np.broadcast_to(np.asarray(params.get("spin1", 0.0), dtype=float), (n,)),
+        np.broadcast_to(np.asarray(params.get("spin2", 0.0), dtype=float), (n,)),
+    )
 
 
 def log_i0(x: Array) -> Array:
@@ -89,6 +101,7 @@ class _Prepared:
     # 4 df d f^{-7/6} / S with the time origin moved to the reference time, as
     # real and imaginary columns, shape (nf, 2).
     weights32: NDArray[np.float32]
+    weighted: NDArray[np.complex128]  # the same in double precision, complex
     cumulative_norm: Array  # cumsum of 4 df f^{-7/3} / S
     basis: PhaseBasis
     design: Array  # the basis with two more rows: f (time shift) and 1 (the -pi/4)
@@ -116,6 +129,7 @@ class ExactLikelihood:
     max_elements: int = 2_000_000
     workers: int = field(default_factory=lambda: min(4, os.cpu_count() or 1))
     names: tuple[str, ...] = PARAMETER_NAMES
+    model: str = "taylorf2"
     _prepared: list[_Prepared] = field(init=False, repr=False)
     _executor: ThreadPoolExecutor | None = field(default=None, init=False, repr=False)
 
@@ -140,6 +154,7 @@ class ExactLikelihood:
                     weights32=np.ascontiguousarray(
                         np.stack([weighted.real, weighted.imag], axis=1), dtype=np.float32
                     ),
+                    weighted=weighted,
                     cumulative_norm=np.cumsum(f ** (-7.0 / 3.0) * weight),
                     basis=basis,
                     design=np.vstack([basis.basis, f, np.ones_like(f)]),
@@ -178,8 +193,11 @@ class ExactLikelihood:
         q = np.atleast_1d(np.asarray(params["mass_ratio"], dtype=float))
         dist = np.atleast_1d(np.asarray(params["effective_distance"], dtype=float))
         tc = np.atleast_1d(np.asarray(params["coalescence_time"], dtype=float))
+        spins = spin_arrays(params, mc.size)
         n = mc.size
         amp = newtonian_amplitude(mc, dist)
+        if self.model != "taylorf2":
+            return self._model_overlaps(mc, q, tc, spins, amp)
         f_isco = isco_frequency(mc * symmetric_mass_ratio(q) ** (-0.6))
         z = np.zeros((len(self._prepared), n), dtype=complex)
         hh = np.zeros((len(self._prepared), n))
@@ -190,7 +208,7 @@ class ExactLikelihood:
                 n_keep > 0, prep.cumulative_norm[np.maximum(n_keep - 1, 0)], 0.0
             )
             coeffs = np.column_stack(
-                [prep.basis.coefficients(mc, q), 2.0 * np.pi * tc, np.full(n, -np.pi / 4.0)]
+                [prep.basis.coefficients(mc, q, *spins), 2.0 * np.pi * tc, np.full(n, -np.pi / 4.0)]
             )
             rows = max(1, self.max_elements // max(f.size, 1))
             for start in range(0, n, rows):
@@ -209,6 +227,38 @@ class ExactLikelihood:
                 else:
                     parts = list(self._pool().map(lambda job: self._block(*job), jobs))
                 z[i, sl] = amp[sl] * np.sum(parts, axis=0)
+        return z, hh
+
+    def _model_overlaps(
+        self,
+        mc: Array,
+        q: Array,
+        tc: Array,
+        spins: tuple[Array, Array] | tuple[None, None],
+        amp: Array,
+    ) -> tuple[NDArray[np.complex128], Array]:
+        """:meth:`overlaps` for a model with a general amplitude (:mod:`estimator.models`).
+
+        ``z = A sum w d S exp(i (Psi + 2 pi f t_c - pi/4))`` and
+        ``<h|h> = A^2 sum 4 df f^{-7/3} S^2 / S_n`` in double precision, in chunks.
+        """
+        n = mc.size
+        z = np.zeros((len(self._prepared), n), dtype=complex)
+        hh = np.zeros((len(self._prepared), n))
+        for i, prep in enumerate(self._prepared):
+            f = prep.data.frequencies
+            weighted = prep.weighted
+            norm = np.diff(np.concatenate([[0.0], prep.cumulative_norm]))
+            rows = max(1, self.max_elements // max(f.size, 1))
+            for start in range(0, n, rows):
+                sl = slice(start, min(n, start + rows))
+                s1 = None if spins[0] is None else spins[0][sl]
+                s2 = None if spins[1] is None else spins[1][sl]
+                factor, psi = model_parts(self.model, f, mc[sl], q[sl], s1, s2)
+                factor, psi = np.atleast_2d(factor), np.atleast_2d(psi)
+                psi = psi + 2.0 * np.pi * tc[sl, None] * f[None, :] - np.pi / 4.0
+                z[i, sl] = amp[sl] * ((factor * np.exp(1j * psi)) @ weighted)
+                hh[i, sl] = amp[sl] ** 2 * (factor**2 @ norm)
         return z, hh
 
     def log_likelihood(self, params: Params) -> Array:

@@ -20,18 +20,20 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .conditioning import DetectorData
-from .coordinates import ArrivalTime, reference_frequency
+from .coordinates import SAMPLER_NAMES, ArrivalTime, reference_frequency
 from .errors import InputError
 from .fisher import FisherEstimate, mass_ratio_of_eta
 from .likelihood import ExactLikelihood, Likelihood
-from .priors import InspiralPrior
+from .priors import SPIN_NAMES, InspiralPrior
 from .relbin import RelativeBinningLikelihood
+from .relbin_model import ModelRelativeBinning, binned_likelihood
 from .sampler import ChainResult, run_ensemble
 from .settings import AnalysisSettings
 
 __all__ = ["LikelihoodCheck", "PosteriorRun", "reweight_exactly", "sample_posterior"]
 
 Array = NDArray[np.float64]
+Binned = RelativeBinningLikelihood | ModelRelativeBinning
 
 
 @dataclass(frozen=True)
@@ -56,7 +58,7 @@ class PosteriorRun:
 
     chain: ChainResult  # in the sampler's coordinates
     coordinates: ArrivalTime
-    likelihood: RelativeBinningLikelihood  # the one the final chain used
+    likelihood: Binned  # the one the final chain used
     check: LikelihoodCheck
     samples: dict[str, Array]  # physical, one row per posterior sample
     sample_log_likelihood: Array  # of the likelihood the samples follow
@@ -65,17 +67,19 @@ class PosteriorRun:
     check_time: float
 
 
-def _sampler_log_likelihood(
-    like: RelativeBinningLikelihood, coords: ArrivalTime, u: Mapping[str, Array]
-) -> Array:
+def _sampler_log_likelihood(like: Binned, coords: ArrivalTime, u: Mapping[str, Array]) -> Array:
     """Log-likelihood at sampler coordinates ``u``."""
     return like.log_likelihood(coords.to_physical(u))
 
 
 #: Start points may lie at most this far below the fiducial's log-likelihood: half the
 #: 99.9% quantile of chi^2 with 4 degrees of freedom (a 4-parameter Gaussian posterior
-#: keeps 99.9% of its mass there; common practice).
+#: keeps 99.9% of its mass there; common practice). With the two spins: 6 degrees.
 START_DEPTH = 9.23
+START_DEPTH_SPINNING = 11.23
+#: Spread of the walkers' starting spins about the fiducial's (the posterior's own
+#: spin width is found by the sampler; a narrow start keeps every walker near the peak).
+START_SPIN_SPREAD = 0.05
 
 
 def _start_walkers(
@@ -86,6 +90,7 @@ def _start_walkers(
     fisher: FisherEstimate,
     walkers: int,
     limits: Mapping[str, float],
+    spin_max: float = 0.0,
 ) -> Array:
     """Walkers drawn from the Fisher Gaussian at the fiducial, kept inside the prior.
 
@@ -103,6 +108,11 @@ def _start_walkers(
     cov = fisher.covariance * np.outer(shrink, shrink)
     center = {k: np.array([v]) for k, v in fisher.center.items()}
     center["mass_ratio"] = mass_ratio_of_eta(center.pop("symmetric_mass_ratio"))
+    spinning = "spin1" in coords.names
+    depth = START_DEPTH_SPINNING if spinning else START_DEPTH
+    if spinning:  # the fiducial is non-spinning; walkers start around zero spin
+        for name in ("spin1", "spin2"):
+            center[name] = np.zeros(1)
     peak = float(log_like(coords.from_physical(center))[0])
     out = np.empty((0, len(coords.names)))
     for _ in range(100):
@@ -115,13 +125,20 @@ def _start_walkers(
             "coalescence_time": draws[good, 2],
             "effective_distance": draws[good, 3],
         }
+        if spinning:
+            for name in ("spin1", "spin2"):
+                physical[name] = np.clip(
+                    START_SPIN_SPREAD * spin_max * rng.standard_normal(int(good.sum())),
+                    -0.999 * spin_max,
+                    0.999 * spin_max,
+                )
         with np.errstate(invalid="ignore", divide="ignore"):
             u = coords.from_physical(physical)
             lp = log_prior(u)
         keep = np.isfinite(lp)
         if np.any(keep):
             kept = {k: v[keep] for k, v in u.items()}
-            keep[keep] = log_like(kept) >= peak - START_DEPTH
+            keep[keep] = log_like(kept) >= peak - depth
         inside = np.column_stack([u[k] for k in coords.names])[keep]
         out = np.vstack([out, inside])
         if out.shape[0] >= walkers:
@@ -170,13 +187,22 @@ def sample_posterior(
     rng: np.random.Generator,
     seed: int,
     progress: Callable[[float], None] | None = None,
+    model: str = "taylorf2",
 ) -> PosteriorRun:
-    """Sample, check against the exact likelihood, refine when needed (module docstring)."""
+    """Sample, check against the exact likelihood, refine when needed (module docstring).
+
+    ``model`` names the waveform model (:mod:`estimator.models`); ``exact`` must use it too.
+    """
     data = datasets[0]
     n_bins = settings.n_bins
     center = dict(fiducial)
     notes: list[str] = []
-    coords = ArrivalTime(reference_frequency(data, center["chirp_mass"], center["mass_ratio"]))
+    names_ = SAMPLER_NAMES + (SPIN_NAMES if prior.spinning else ())
+    for name in SPIN_NAMES if prior.spinning else ():
+        center.setdefault(name, 0.0)
+    coords = ArrivalTime(
+        reference_frequency(data, center["chirp_mass"], center["mass_ratio"]), names=names_
+    )
     names = coords.names
     sampling_time = check_time = 0.0
     chain: ChainResult | None = None
@@ -184,7 +210,7 @@ def sample_posterior(
     start: Array | None = None
     for refinement in range(settings.max_refinements + 1):
         clock = time.perf_counter()
-        binned = RelativeBinningLikelihood(datasets, reference, center, n_bins=n_bins)
+        binned = binned_likelihood(datasets, reference, center, n_bins=n_bins, model=model)
 
         if start is None:
             center_u = {
@@ -206,6 +232,7 @@ def sample_posterior(
                     "coalescence_time": settings.time_window,
                     "effective_distance": 0.5 * center["effective_distance"],
                 },
+                spin_max=prior.spin_max,
             )
             # A first look before sampling: points spread twice as widely as the starting
             # walkers (about as widely as the posterior's tails) must already meet the
@@ -214,15 +241,16 @@ def sample_posterior(
             wide = mid + 2.0 * (start - mid)
             wide[:, 1] = np.clip(wide[:, 1], *settings.mass_ratio_range)
             wide[:, 2] = np.abs(wide[:, 2])
+            wide[:, 4:] = np.clip(wide[:, 4:], -prior.spin_max, prior.spin_max)
             points = coords.to_physical({k: wide[:, j] for j, k in enumerate(names)})
             for _ in range(2):
                 gap = np.max(np.abs(exact.log_likelihood(points) - binned.log_likelihood(points)))
                 if gap <= settings.likelihood_tolerance:
                     break
                 n_bins *= 2
-                binned = RelativeBinningLikelihood(datasets, reference, center, n_bins=n_bins)
+                binned = binned_likelihood(datasets, reference, center, n_bins=n_bins, model=model)
 
-        def log_post(u: Mapping[str, Array], like: RelativeBinningLikelihood = binned) -> Array:
+        def log_post(u: Mapping[str, Array], like: Binned = binned) -> Array:
             p = coords.to_physical(u)
             lp = prior.log_prob(p)
             out = np.full(lp.shape, -np.inf)

@@ -43,9 +43,18 @@ from .errors import InputError
 from .orientation import draw_orientation, orientation_table
 from .waveform import component_masses
 
-__all__ = ["EFFECTIVE_DISTANCE_CUTOFF", "InspiralPrior", "Prior", "draw_orientation"]
+__all__ = [
+    "EFFECTIVE_DISTANCE_CUTOFF",
+    "SPIN_NAMES",
+    "InspiralPrior",
+    "Prior",
+    "draw_orientation",
+]
 
 Array = NDArray[np.float64]
+
+#: Names of the aligned spins of the heavier and the lighter body.
+SPIN_NAMES = ("spin1", "spin2")
 
 #: Upper end of the effective-distance support, in units of ``distance_max``.
 EFFECTIVE_DISTANCE_CUTOFF = 100.0
@@ -96,6 +105,9 @@ class InspiralPrior:
         ``(low, high)`` of ``q = m2/m1``, with ``0 < low < high <= 1``.
     component_mass
         ``(low, high)`` for each of ``m1`` and ``m2``, detector-frame Msun.
+    spin_max
+        Largest magnitude of each aligned spin (uniform prior on
+        ``[-spin_max, spin_max]``, common practice); 0 fixes the spins at zero.
     distance_max
         Largest luminosity distance, Mpc.
     time_window
@@ -113,8 +125,15 @@ class InspiralPrior:
     component_mass: tuple[float, float]
     distance_max: float
     time_window: float = 0.1
+    spin_max: float = 0.0
 
     def __post_init__(self) -> None:
+        spin_max = float(self.spin_max)
+        if not (np.isfinite(spin_max) and 0.0 <= spin_max < 1.0):
+            raise InputError(
+                f"spin_max is {spin_max:g}; give a number in [0, 1) (0 fixes the spins at zero)",
+                field="spin_max",
+            )
         _check_interval("chirp_mass", self.chirp_mass, np.finfo(float).tiny, np.inf)
         _check_interval("mass_ratio", self.mass_ratio, np.finfo(float).tiny, 1.0)
         _check_interval("component_mass", self.component_mass, np.finfo(float).tiny, np.inf)
@@ -134,19 +153,29 @@ class InspiralPrior:
             )
 
     @property
+    def spinning(self) -> bool:
+        """Whether the aligned spins are sampled (``spin_max > 0``)."""
+        return float(self.spin_max) > 0.0
+
+    @property
     def names(self) -> tuple[str, ...]:
-        """``("chirp_mass", "mass_ratio", "effective_distance", "coalescence_time")``."""
-        return ("chirp_mass", "mass_ratio", "effective_distance", "coalescence_time")
+        """``("chirp_mass", "mass_ratio", "effective_distance", "coalescence_time")``,
+        then ``("spin1", "spin2")`` when the spins are sampled."""
+        base = ("chirp_mass", "mass_ratio", "effective_distance", "coalescence_time")
+        return (*base, *SPIN_NAMES) if self.spinning else base
 
     @property
     def bounds(self) -> dict[str, tuple[float, float]]:
-        """Support of each sampled parameter (Msun, 1, Mpc, s)."""
-        return {
+        """Support of each sampled parameter (Msun, 1, Mpc, s, 1, 1)."""
+        out = {
             "chirp_mass": (float(self.chirp_mass[0]), float(self.chirp_mass[1])),
             "mass_ratio": (float(self.mass_ratio[0]), float(self.mass_ratio[1])),
             "effective_distance": (0.0, EFFECTIVE_DISTANCE_CUTOFF * self.distance_max),
             "coalescence_time": (-self.time_window, self.time_window),
         }
+        for name in SPIN_NAMES if self.spinning else ():
+            out[name] = (-float(self.spin_max), float(self.spin_max))
+        return out
 
     def _mass_box(self) -> tuple[tuple[float, float], tuple[float, float]]:
         """Ranges of ``m1`` and ``m2`` that contain the whole mass support.
@@ -171,6 +200,7 @@ class InspiralPrior:
         ``u = min(1, distance_max / d_eff)``, plus a constant; ``-inf`` outside the
         support (see the module docstring for the derivation and sources). ``log G``
         is interpolated linearly in ``log u`` on the tabulated isotropic law of ``w``.
+        Spins, when sampled, are uniform on ``[-spin_max, spin_max]`` each.
 
         Parameters
         ----------
@@ -186,6 +216,9 @@ class InspiralPrior:
         bounds = self.bounds
         ok = (t >= -self.time_window) & (t <= self.time_window)
         ok &= (d_eff > 0.0) & (d_eff <= bounds["effective_distance"][1])
+        for name in SPIN_NAMES if self.spinning else ():
+            chi = np.asarray(params[name], dtype=float)
+            ok &= np.abs(chi) <= self.spin_max
         d_eff = np.where(ok, d_eff, 1.0)
         table = orientation_table()
         log_u = np.minimum(0.0, np.log(self.distance_max / d_eff))
@@ -247,12 +280,15 @@ class InspiralPrior:
                 d_eff[todo] = d / w
             todo = todo[~((d_eff[todo] > 0.0) & (d_eff[todo] <= d_cut))]
         t = rng.uniform(-self.time_window, self.time_window, n)
-        return {
+        out = {
             "chirp_mass": mc,
             "mass_ratio": q,
             "effective_distance": d_eff,
             "coalescence_time": t,
         }
+        for name in SPIN_NAMES if self.spinning else ():
+            out[name] = rng.uniform(-self.spin_max, self.spin_max, n)
+        return out
 
     def _sample_masses(self, rng: np.random.Generator, n: int) -> tuple[Array, Array]:
         (m1_lo, m1_hi), (m2_lo, m2_hi) = self._mass_box()

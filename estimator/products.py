@@ -9,8 +9,9 @@ from numpy.typing import NDArray
 
 from .analysis import AnalysisResult
 from .conditioning import whiten
+from .models import model_strain
 from .spectrum import welch_psd
-from .waveform import isco_frequency, symmetric_mass_ratio, taylorf2, time_to_coalescence
+from .waveform import isco_frequency, symmetric_mass_ratio, time_to_coalescence
 
 __all__ = ["PlotData", "plot_data"]
 
@@ -51,8 +52,14 @@ def plot_data(result: AnalysisResult, *, span: tuple[float, float] | None = None
     arrays = {k: np.array([v]) for k, v in p.items()}
     z, _ = result.likelihood.overlaps(arrays)
     phase = float(np.angle(z[0, 0]))
-    model = taylorf2(
-        data.frequencies, p["chirp_mass"], p["mass_ratio"], p["effective_distance"], tc_rel, phase
+    model = model_strain(
+        result.model,
+        data.frequencies,
+        p["chirp_mass"],
+        p["mass_ratio"],
+        p["effective_distance"],
+        tc_rel,
+        phase,
     )
     times = np.arange(data.n_samples) / data.sample_rate - tc_rel
     white_data = whiten(data, data.strain)

@@ -28,8 +28,9 @@ from numpy.typing import NDArray
 
 from .analysis import AnalysisResult
 from .conditioning import DetectorData, whiten
+from .models import model_strain, model_top
 from .spectrum import interpolate_psd
-from .waveform import isco_frequency, symmetric_mass_ratio, taylorf2, time_to_coalescence
+from .waveform import time_to_coalescence
 
 __all__ = [
     "BAND_FRACTION_LIMIT",
@@ -110,8 +111,14 @@ def _model(result: AnalysisResult) -> tuple[NDArray[np.complex128], float]:
     """
     data, p = result.data, result.fiducial.params
     tc_rel = p["coalescence_time"] + result.settings.trigger_time - data.epoch
-    h0 = taylorf2(
-        data.frequencies, p["chirp_mass"], p["mass_ratio"], p["effective_distance"], tc_rel, 0.0
+    h0 = model_strain(
+        result.model,
+        data.frequencies,
+        p["chirp_mass"],
+        p["mass_ratio"],
+        p["effective_distance"],
+        tc_rel,
+        0.0,
     )
     # The phase-marginalised likelihood's best phase is arg <d|h0> (Thrane & Talbot 2019,
     # PASA 36, e010, Eq. 75); taylorf2's phase phi multiplies h0 by exp(+i phi).
@@ -285,15 +292,15 @@ def _edge_check(result: AnalysisResult, tc: float) -> QualityCheck:
 
 
 def _band_check(result: AnalysisResult) -> QualityCheck:
-    """Share of the model's optimal SNR^2 above ``f_high``, up to its ISCO.
+    """Share of the model's optimal SNR^2 above ``f_high``, up to its end (ISCO or ringdown).
 
     ``rho^2 = 4 int |h|^2 / S df`` (Cutler & Flanagan 1994, PRD 49, 2658, Eq. 2.4),
     on a 1 Hz grid; frequencies the spectrum does not cover count as no power.
     """
     data, p = result.data, result.fiducial.params
-    f_isco = float(isco_frequency(p["chirp_mass"] * symmetric_mass_ratio(p["mass_ratio"]) ** -0.6))
+    f_isco = float(model_top(result.model, p["chirp_mass"], p["mass_ratio"]))
     f = np.arange(data.f_low, max(f_isco, data.f_low + 1.0), 1.0)
-    h = taylorf2(f, p["chirp_mass"], p["mass_ratio"], p["effective_distance"])
+    h = model_strain(result.model, f, p["chirp_mass"], p["mass_ratio"], p["effective_distance"])
     power = np.abs(h) ** 2 / interpolate_psd(result.spectrum, f)
     total = float(np.sum(power))
     fraction = float(np.sum(power[f > data.f_high])) / total if total > 0 else 0.0
@@ -303,7 +310,7 @@ def _band_check(result: AnalysisResult) -> QualityCheck:
     else:
         words = (
             f"{fraction:.0%} of the signal's power lies above the band's upper edge "
-            f"({data.f_high:g} Hz, below its ISCO at {f_isco:.0f} Hz): that part is not "
+            f"({data.f_high:g} Hz, below its end near {f_isco:.0f} Hz): that part is not "
             "analysed. Raise the upper frequency or supply data at a higher sample rate."
         )
     rule = f"share of SNR² above f_high <= {BAND_FRACTION_LIMIT:.0%}"
@@ -357,5 +364,49 @@ def assess_quality(result: AnalysisResult) -> QualityReport:
         _edge_check(result, tc),
         _band_check(result),
         _likelihood_check(result),
+        _low_frequency_check(result),
+        _gating_check(result),
     ]
     return QualityReport(checks)
+
+
+def _low_frequency_check(result: AnalysisResult) -> QualityCheck:
+    """Was the low-frequency cut raised because the segment starts too late?"""
+    raised = result.f_low_raised
+    rule = "the asked low-frequency cut fits the segment"
+    if raised is None:
+        return QualityCheck(
+            "low_frequency_cut", True, float(result.data.f_low), rule,
+            "The signal above the asked low-frequency cut lies inside the segment.",
+        )  # fmt: skip
+    asked, used = raised
+    words = (
+        f"The segment starts too close to the signal for f_low = {asked:g} Hz, so the "
+        f"analysis starts at {used:g} Hz instead: the signal below that is not used, and "
+        "the intervals are wider than a longer segment would give."
+    )
+    return QualityCheck("low_frequency_cut", False, float(used), rule, words)
+
+
+def _gating_check(result: AnalysisResult) -> QualityCheck:
+    """Glitches gated away from the signal (a note) or loud at the signal (a warning)."""
+    scan = result.glitches
+    rule = "no loud short glitch at the signal; glitches elsewhere are gated"
+    if scan is None:
+        return QualityCheck("gating", True, 0.0, rule, "Gating was switched off.")
+    tc = result.settings.trigger_time + result.fiducial.params["coalescence_time"]
+    parts = []
+    if scan.gates:
+        where = ", ".join(f"{g.centre - tc:+.2f} s" for g in scan.gates)
+        parts.append(
+            f"{len(scan.gates)} loud short glitch(es) away from the signal were gated out "
+            f"(at {where} from coalescence; inverse Tukey window of the whitened data)."
+        )
+    if scan.at_signal:
+        parts.append(
+            "A loud short excess lies at the signal itself: it is not gated (it may be the "
+            "signal, or a glitch on top of it); treat the intervals with caution."
+        )
+    if not parts:
+        parts.append("No loud short glitch was found in the segment.")
+    return QualityCheck("gating", not scan.at_signal, float(len(scan.gates)), rule, " ".join(parts))

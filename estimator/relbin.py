@@ -27,12 +27,13 @@ from numpy.typing import NDArray
 from scipy.special import i0e
 
 from .conditioning import DetectorData
-from .likelihood import PARAMETER_NAMES, log_i0, newtonian_amplitude
+from .likelihood import PARAMETER_NAMES, log_i0, newtonian_amplitude, spin_arrays
 from .waveform import (
     MPC_SECONDS,
     MSUN_SECONDS,
     PhaseBasis,
     _coefficient_tables,
+    _spin_columns,
     isco_frequency,
     symmetric_mass_ratio,
     taylorf2_phase,
@@ -119,19 +120,35 @@ class MassTerms(NamedTuple):
     log_c: Array
     eta_powers: Array
     f_isco: Array
+    #: Aligned-spin additions to the phase coefficients (``_spin_columns``), or None.
+    spin_columns: Array | None = None
 
 
-def mass_terms(chirp_mass: Array, mass_ratio: Array) -> MassTerms:
-    """:class:`MassTerms` of parameter sets ``(chirp_mass, mass_ratio)``, each ``(n,)``."""
+#: Column layout of the default :class:`PhaseBasis` (the one every bin set uses).
+_LAYOUT = PhaseBasis(np.ones(1))._layout
+
+
+def mass_terms(
+    chirp_mass: Array,
+    mass_ratio: Array,
+    spin1: Array | None = None,
+    spin2: Array | None = None,
+) -> MassTerms:
+    """:class:`MassTerms` of parameter sets ``(chirp_mass, mass_ratio[, spins])``, each ``(n,)``."""
     log_mc = np.log(chirp_mass)
     eta = mass_ratio / (1.0 + mass_ratio) ** 2
     log_total = log_mc - 0.6 * np.log(eta)
+    log_c = (log_total + _LOG_PI_MSUN) * (1.0 / 3.0)
+    spin_cols = None
+    if spin1 is not None or spin2 is not None:
+        spin_cols = _spin_columns(_LAYOUT, eta, log_c, spin1, spin2)
     return MassTerms(
         log_mc=log_mc,
         eta=eta,
-        log_c=(log_total + _LOG_PI_MSUN) * (1.0 / 3.0),
+        log_c=log_c,
         eta_powers=eta[:, None] ** _CUBIC,
         f_isco=_ISCO * np.exp(-log_total),
+        spin_columns=spin_cols,
     )
 
 
@@ -143,7 +160,10 @@ def _overlap_parts(b: _Binned, terms: MassTerms, tc: Array) -> tuple[Array, Arra
     coeffs = np.empty((n, powers.size + 2))
     body = coeffs[:, : powers.size]
     np.exp(log_c[:, None] * powers - np.log(eta * (128.0 / 3.0))[:, None], out=body)
-    body *= eta_powers @ poly + log_c[:, None] * (eta_powers @ log_poly)
+    poly_part = eta_powers @ poly + log_c[:, None] * (eta_powers @ log_poly)
+    if terms.spin_columns is not None:
+        poly_part += terms.spin_columns
+    body *= poly_part
     coeffs[:, -2] = 2.0 * np.pi * (tc - b.tc0)
     coeffs[:, -1] = 1.0
     x = (coeffs @ b.design).astype(np.float32)
@@ -208,6 +228,8 @@ class RelativeBinningLikelihood:
         mc0 = float(self.fiducial["chirp_mass"])
         q0 = float(self.fiducial["mass_ratio"])
         tc0 = float(self.fiducial["coalescence_time"])
+        s10 = float(self.fiducial.get("spin1", 0.0))
+        s20 = float(self.fiducial.get("spin2", 0.0))
         for data in self.datasets:
             f = data.frequencies
             # Bins where the fiducial has signal (up to 1.5x its ISCO frequency, which
@@ -224,7 +246,8 @@ class RelativeBinningLikelihood:
             # h0 = f^{-7/6} exp(-i psi0); ratios carry the amplitude.
             # The same phase convention as the exact likelihood (with its -pi/4), so that
             # the binned overlap z has the exact one's phase as well as its modulus.
-            psi0 = taylorf2_phase(f, mc0, q0) + 2.0 * np.pi * shift * f - np.pi / 4.0
+            psi0 = taylorf2_phase(f, mc0, q0, spin1=s10, spin2=s20)
+            psi0 += 2.0 * np.pi * shift * f - np.pi / 4.0
             weight = 4.0 * data.df / data.psd
             # d h0* / S with h0 = f^{-7/6} exp(-i psi0), no ISCO cut.
             integrand = data.strain * (f ** (-7.0 / 6.0) * weight) * np.exp(1j * psi0)
@@ -252,7 +275,9 @@ class RelativeBinningLikelihood:
                     a0=a0,
                     a1=a1,
                     basis=basis,
-                    design=np.vstack([basis.basis, edges, -basis.phase(mc0, q0)[0]]),
+                    design=np.vstack(
+                        [basis.basis, edges, -basis.phase(mc0, q0, s10, s20)[0]]
+                    ),
                     tc0=tc0,
                     tables=_coefficient_tables(basis._layout),
                     edge_weights=np.column_stack([weights.real, weights.imag]),
@@ -273,6 +298,7 @@ class RelativeBinningLikelihood:
         q = np.atleast_1d(np.asarray(params["mass_ratio"], dtype=float))
         dist = np.atleast_1d(np.asarray(params["effective_distance"], dtype=float))
         tc = np.atleast_1d(np.asarray(params["coalescence_time"], dtype=float))
+        spins = spin_arrays(params, mc.size)
         amp = newtonian_amplitude(mc, dist)
         f_isco = isco_frequency(mc * symmetric_mass_ratio(q) ** (-0.6))
         z = np.zeros((len(self._bins), mc.size), dtype=complex)
@@ -283,7 +309,7 @@ class RelativeBinningLikelihood:
             # fiducial's and -psi0 in one product. It stays small (up to tens of
             # radians), so single-precision trigonometry is accurate to ~1e-6 rad.
             coeffs = np.column_stack(
-                [b.basis.coefficients(mc, q), 2.0 * np.pi * (tc - b.tc0), np.ones_like(tc)]
+                [b.basis.coefficients(mc, q, *spins), 2.0 * np.pi * (tc - b.tc0), np.ones_like(tc)]
             )
             x = (coeffs @ b.design).astype(np.float32)
             cos = np.cos(x).astype(float)
@@ -325,7 +351,7 @@ class RelativeBinningLikelihood:
         tc = np.asarray(params["coalescence_time"], dtype=float)
         if mc.ndim != 1:
             return self._general(params)
-        terms = mass_terms(mc, q)
+        terms = mass_terms(mc, q, *spin_arrays(params, mc.size))
         amp = _AMPLITUDE * np.exp((5.0 / 6.0) * terms.log_mc) / dist
         total = np.zeros(mc.size)
         for b in self._bins:

@@ -24,6 +24,12 @@ class AnalysisSettings:
     mass_ratio_range: tuple[float, float] = (0.1, 1.0)
     component_mass_range: tuple[float, float] = (0.5, 150.0)
     distance_max: float = 10_000.0
+    #: Largest aligned-spin magnitude (uniform prior on each spin); 0 fixes spins at zero.
+    spin_max: float = 0.99
+    #: Waveform model: "auto", "merger" or "taylorf2" (see estimator.models).
+    model: str = "auto"
+    #: Gate loud short glitches away from the signal and analyse the gated data.
+    gating: bool = True
     time_window: float = 0.1
     seed: int | None = None
     walkers: int = 32

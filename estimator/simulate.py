@@ -16,9 +16,10 @@ import scipy.fft
 from numpy.typing import NDArray
 
 from .data import NoiseSpectrum, StrainSegment
+from .models import model_strain
 from .network_model import SiteGeometry, antenna_factor
 from .spectrum import interpolate_psd
-from .waveform import taylorf2, time_to_coalescence
+from .waveform import time_to_coalescence
 
 __all__ = [
     "Injection",
@@ -69,6 +70,11 @@ class Injection:
     effective_distance: float
     coalescence_time: float
     phase: float = 0.0
+    spin1: float = 0.0
+    spin2: float = 0.0
+    #: Waveform injected: a model of :mod:`estimator.models` (``merger``, ``taylorf2``).
+    #: The merger model equals TaylorF2 up to the ISCO and continues smoothly beyond.
+    model: str = "merger"
 
 
 def injection_strain(
@@ -95,13 +101,16 @@ def injection_strain(
         f_start *= 1.05
     h = np.zeros(f.size, dtype=complex)
     on = f >= f_start
-    h[on] = taylorf2(
+    h[on] = model_strain(
+        injection.model,
         f[on],
         injection.chirp_mass,
         injection.mass_ratio,
         injection.effective_distance,
         injection.coalescence_time - start_time,
         injection.phase,
+        injection.spin1,
+        injection.spin2,
     )
     ramp = np.clip((f - f_start) / (0.1 * f_start), 0.0, 1.0)
     return np.asarray(h * 0.5 * (1.0 - np.cos(np.pi * ramp)), dtype=complex)

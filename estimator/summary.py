@@ -21,9 +21,11 @@ from numpy.typing import NDArray
 from . import __version__
 from .analysis import AnalysisResult, settings_dict
 from .cosmology import redshift_from_distance
+from .models import MODEL_DESCRIPTIONS
 from .posterior import LikelihoodCheck
 from .priors import draw_orientation
 from .quality import assess_quality
+from .spins import effective_spin
 from .stats import credible_interval, probability_below
 from .waveform import component_masses
 
@@ -59,6 +61,9 @@ PARAMETER_UNITS: dict[str, str] = {
     "source_primary_mass": "Msun",
     "source_secondary_mass": "Msun",
     "source_total_mass": "Msun",
+    "spin1": "",
+    "spin2": "",
+    "effective_spin": "",
     "snr": "",
 }
 PARAMETER_LABELS: dict[str, str] = {
@@ -76,6 +81,9 @@ PARAMETER_LABELS: dict[str, str] = {
     "source_primary_mass": "primary mass (source frame)",
     "source_secondary_mass": "secondary mass (source frame)",
     "source_total_mass": "total mass (source frame)",
+    "spin1": "aligned spin of the primary",
+    "spin2": "aligned spin of the secondary",
+    "effective_spin": "effective spin chi_eff",
     "snr": "matched-filter SNR",
 }
 
@@ -109,6 +117,9 @@ def derive_samples(result: AnalysisResult, rng: np.random.Generator) -> dict[str
         "snr": result.likelihood.matched_filter_snr(s),
         "log_likelihood": result.sample_log_likelihood,
     }
+    if "spin1" in s:
+        out["spin1"], out["spin2"] = s["spin1"], s["spin2"]
+        out["effective_spin"] = effective_spin(s["mass_ratio"], s["spin1"], s["spin2"])
     return {k: np.asarray(v, dtype=float) for k, v in out.items()}
 
 
@@ -123,6 +134,21 @@ def check_dict(check: LikelihoodCheck) -> dict[str, Any]:
         "refinements": check.refinements,
         "reweighted_with_exact_likelihood": check.reweighted,
         "reweight_efficiency": check.reweight_efficiency,
+    }
+
+
+def _gating_dict(result: AnalysisResult) -> dict[str, Any] | None:
+    """The glitch scan as ``summary.json`` records it (None when gating was off)."""
+    scan = result.glitches
+    if scan is None:
+        return None
+    return {
+        "method": "inverse Tukey window on the whitened data (Usman et al. 2016, CQG 33, "
+        "215004, Sec. 2.3)",
+        "gates": [g.to_dict() for g in scan.gates],
+        "at_signal": [g.to_dict() for g in scan.at_signal],
+        "threshold_power_ratio": float(scan.threshold),
+        "not_gated_beyond_limit": int(scan.dropped),
     }
 
 
@@ -157,7 +183,9 @@ def build_summary(
         "label": label,
         "credible_level": CREDIBLE_LEVEL,
         "parameters": {
-            name: _interval(derived[name], unit) for name, unit in PARAMETER_UNITS.items()
+            name: _interval(derived[name], unit)
+            for name, unit in PARAMETER_UNITS.items()
+            if name in derived
         },
         "probabilities": {
             "secondary_below_3_msun": probability_below(
@@ -203,9 +231,22 @@ def build_summary(
         },
         "inputs": dict(inputs),
         "model": {
-            "waveform": "TaylorF2: 3.5PN point-particle phase, restricted Newtonian amplitude, "
-            "ending at the Schwarzschild ISCO of the total mass; no spins, tides, "
-            "merger or ringdown",
+            "name": result.model,
+            "waveform": MODEL_DESCRIPTIONS[result.model] + "; no precession, tides or "
+            "higher harmonics",
+            "spins": (
+                f"aligned spins sampled, each uniform on [-{result.settings.spin_max:g}, "
+                f"{result.settings.spin_max:g}]"
+                if result.settings.spin_max > 0.0
+                else "spins fixed at zero"
+            ),
+            "f_low_used": result.data.f_low,
+            "f_low_raised": (
+                None
+                if result.f_low_raised is None
+                else {"asked": result.f_low_raised[0], "used": result.f_low_raised[1]}
+            ),
+            "gating": _gating_dict(result),
             "noise": "stationary Gaussian noise described by the given one-sided PSD",
             "cosmology": "flat Lambda-CDM, H0 = 67.66 km/s/Mpc, Omega_m = 0.30966 (Planck 2018)",
             "detectors": [result.data.detector],

@@ -1,8 +1,9 @@
 """TaylorF2: the frequency-domain inspiral model in the stationary-phase approximation.
 
-Point-particle phase to 3.5 post-Newtonian (PN) order, restricted (Newtonian)
-amplitude, ending at the Schwarzschild innermost-stable-circular-orbit (ISCO)
-frequency of the total mass.
+Point-particle phase to 3.5 post-Newtonian (PN) order plus the spin terms of
+binaries with spins aligned with the orbital angular momentum (:mod:`estimator.spins`),
+restricted (Newtonian) amplitude, ending at the Schwarzschild
+innermost-stable-circular-orbit (ISCO) frequency of the total mass.
 
 Conventions
 -----------
@@ -26,6 +27,8 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from .spins import spin_phase_terms
+
 __all__ = [
     "EULER_GAMMA",
     "MPC_SECONDS",
@@ -36,6 +39,7 @@ __all__ = [
     "component_masses",
     "isco_frequency",
     "phase_coefficients",
+    "phase_derivatives",
     "phase_of_eta",
     "symmetric_mass_ratio",
     "taylorf2",
@@ -91,15 +95,26 @@ def chirp_time(chirp_mass: ArrayLike, f_low: float) -> Array:
     return 5.0 / (256.0 * np.pi * f_low) * (np.pi * mc * f_low) ** (-5.0 / 3.0)
 
 
-def phase_coefficients(eta: ArrayLike) -> dict[int, tuple[Array, Array]]:
+def phase_coefficients(
+    eta: ArrayLike, spin1: ArrayLike = 0.0, spin2: ArrayLike = 0.0
+) -> dict[int, tuple[Array, Array]]:
     """Coefficients of the TaylorF2 phase series.
 
     Returns ``{k: (a_k, b_k)}`` such that the PN sum is
     ``sum_k (a_k + b_k ln v) v^k`` (Buonanno et al. 2009, Eq. 3.18; the 2.5PN
     term is written with ``ln v`` and a constant that only shifts ``phi_c``
-    and ``t_c``, the 3PN term carries ``-6848/21 ln(4 v)``).
+    and ``t_c``, the 3PN term carries ``-6848/21 ln(4 v)``). Aligned spins
+    ``spin1`` (heavier body) and ``spin2`` add the terms of
+    :func:`estimator.spins.spin_phase_terms`.
     """
     eta = np.asarray(eta, dtype=float)
+    if np.any(np.asarray(spin1) != 0.0) or np.any(np.asarray(spin2) != 0.0):
+        plain = phase_coefficients(eta)
+        extra = spin_phase_terms(eta, spin1, spin2)
+        return {
+            k: (a + extra[k][0], b + extra[k][1]) if k in extra else (a, b)
+            for k, (a, b) in plain.items()
+        }
     zero = np.zeros_like(eta)
     pi = np.pi
     a5 = pi * (38645.0 / 756.0 - 65.0 / 9.0 * eta)
@@ -155,12 +170,19 @@ class PhaseBasis:
                 self._layout.append((k, True))
         self.basis = np.ascontiguousarray(np.array(rows))
 
-    def coefficients(self, chirp_mass: ArrayLike, mass_ratio: ArrayLike) -> Array:
-        """Mass-dependent coefficients, shape ``(n, n_basis)``.
+    def coefficients(
+        self,
+        chirp_mass: ArrayLike,
+        mass_ratio: ArrayLike,
+        spin1: ArrayLike | None = None,
+        spin2: ArrayLike | None = None,
+    ) -> Array:
+        """Mass- and spin-dependent coefficients, shape ``(n, n_basis)``.
 
-        Every ``a_k`` of :func:`phase_coefficients` is a polynomial of degree at
-        most 3 in ``eta``; its coefficients are found once (exactly, from four
-        evaluations) so that this is a few array operations for any ``n``.
+        Every point-particle ``a_k`` of :func:`phase_coefficients` is a polynomial
+        of degree at most 3 in ``eta``; its coefficients are found once (exactly,
+        from four evaluations) so that this is a few array operations for any
+        ``n``. Aligned spins add the terms of :func:`estimator.spins.spin_phase_terms`.
         """
         mc = np.atleast_1d(np.asarray(chirp_mass, dtype=float))
         q = np.atleast_1d(np.asarray(mass_ratio, dtype=float))
@@ -169,32 +191,73 @@ class PhaseBasis:
         poly, log_poly, powers = _coefficient_tables(self._layout)
         eta_powers = np.stack([np.ones_like(eta), eta, eta**2, eta**3], axis=1)
         scale = (3.0 / (128.0 * eta))[:, None] * np.exp(np.outer(log_c, powers))
-        return np.asarray(scale * (eta_powers @ poly + log_c[:, None] * (eta_powers @ log_poly)))
+        body = eta_powers @ poly + log_c[:, None] * (eta_powers @ log_poly)
+        if spin1 is not None or spin2 is not None:
+            body += _spin_columns(self._layout, eta, log_c, spin1, spin2)
+        return np.asarray(scale * body)
 
-    def phase(self, chirp_mass: ArrayLike, mass_ratio: ArrayLike) -> Array:
+    def phase(
+        self,
+        chirp_mass: ArrayLike,
+        mass_ratio: ArrayLike,
+        spin1: ArrayLike | None = None,
+        spin2: ArrayLike | None = None,
+    ) -> Array:
         """PN phase, shape ``(n, nf)``, radians (as :func:`taylorf2_phase`)."""
-        return np.asarray(self.coefficients(chirp_mass, mass_ratio) @ self.basis)
+        return np.asarray(self.coefficients(chirp_mass, mass_ratio, spin1, spin2) @ self.basis)
 
 
-def _single_phase(f: Array, chirp_mass: float, mass_ratio: float, orders: tuple[int, ...]
-                  ) -> Array:
+def _spin_columns(
+    layout: list[tuple[int, bool]],
+    eta: Array,
+    log_c: Array,
+    spin1: ArrayLike | None,
+    spin2: ArrayLike | None,
+) -> Array:
+    """Spin additions to the unscaled :class:`PhaseBasis` coefficients, ``(n, n_basis)``."""
+    s1 = np.broadcast_to(np.asarray(0.0 if spin1 is None else spin1, dtype=float), eta.shape)
+    s2 = np.broadcast_to(np.asarray(0.0 if spin2 is None else spin2, dtype=float), eta.shape)
+    terms = spin_phase_terms(eta, s1, s2)
+    out = np.zeros((eta.size, len(layout)))
+    for j, (k, is_log) in enumerate(layout):
+        if k in terms:
+            a_k, b_k = terms[k]
+            out[:, j] = b_k if is_log else a_k + b_k * log_c
+    return out
+
+
+def _single_phase(
+    f: Array,
+    chirp_mass: float,
+    mass_ratio: float,
+    orders: tuple[int, ...],
+    spin1: float = 0.0,
+    spin2: float = 0.0,
+) -> Array:
     """The PN phase of one parameter set, evaluated directly (Horner's rule in ``v``)."""
-    return phase_of_eta(f, chirp_mass, float(symmetric_mass_ratio(mass_ratio)), orders)
+    eta = float(symmetric_mass_ratio(mass_ratio))
+    return phase_of_eta(f, chirp_mass, eta, orders, spin1=spin1, spin2=spin2)
 
 
 def phase_of_eta(
-    f: Array, chirp_mass: float, eta: float, orders: tuple[int, ...] = PN_ORDERS
+    f: Array,
+    chirp_mass: float,
+    eta: float,
+    orders: tuple[int, ...] = PN_ORDERS,
+    *,
+    spin1: float = 0.0,
+    spin2: float = 0.0,
 ) -> Array:
     """The PN phase of :func:`taylorf2_phase` for one chirp mass and symmetric mass ratio.
 
     Written in ``eta`` rather than ``q``, so that it is smooth through the
-    equal-mass point ``eta = 1/4`` (the series' coefficients are polynomials in
-    ``eta``), as derivatives there need.
+    equal-mass point ``eta = 1/4`` (the point-particle coefficients are
+    polynomials in ``eta``), as derivatives there need.
     """
     total = chirp_mass * eta ** (-0.6) * MSUN_SECONDS
     v = np.cbrt(np.pi * total * f)
     log_v = np.log(v)
-    coeffs = phase_coefficients(eta)
+    coeffs = phase_coefficients(eta, spin1, spin2)
     series = np.zeros_like(v)
     for k in range(max(orders), -1, -1):
         series *= v
@@ -239,6 +302,8 @@ def taylorf2_phase(
     mass_ratio: ArrayLike,
     *,
     orders: tuple[int, ...] = PN_ORDERS,
+    spin1: ArrayLike = 0.0,
+    spin2: ArrayLike = 0.0,
 ) -> Array:
     """PN part of the TaylorF2 phase, ``3/(128 eta v^5) sum_k phi_k v^k``.
 
@@ -250,6 +315,9 @@ def taylorf2_phase(
         Shape ``(n,)`` (or scalars), detector-frame solar masses and ``m2/m1``.
     orders
         Which ``k`` of the series to include (all by default).
+    spin1, spin2
+        Aligned dimensionless spins of the heavier and lighter body (shape
+        ``(n,)`` or scalars; zero by default).
 
     Returns
     -------
@@ -257,15 +325,17 @@ def taylorf2_phase(
     time and phase terms ``2 pi f t_c - phi_c - pi/4`` are not included.
     Computed through :class:`PhaseBasis`; build one yourself to reuse a grid.
     """
-    scalar = np.ndim(chirp_mass) == 0 and np.ndim(mass_ratio) == 0
-    mc = np.atleast_1d(np.asarray(chirp_mass, dtype=float))
-    q = np.atleast_1d(np.asarray(mass_ratio, dtype=float))
-    mc, q = np.broadcast_arrays(mc, q)
+    scalar = all(np.ndim(x) == 0 for x in (chirp_mass, mass_ratio, spin1, spin2))
+    mc, q, s1, s2 = np.broadcast_arrays(
+        *(np.atleast_1d(np.asarray(x, dtype=float)) for x in (chirp_mass, mass_ratio, spin1, spin2))
+    )
     if mc.size == 1:
         phase = _single_phase(np.asarray(frequencies, dtype=float), float(mc[0]), float(q[0]),
-                              orders)[None, :]
+                              orders, float(s1[0]), float(s2[0]))[None, :]  # fmt: skip
     else:
-        phase = PhaseBasis(frequencies, orders).phase(mc, q)
+        spinning = bool(np.any(s1 != 0.0) or np.any(s2 != 0.0))
+        basis = PhaseBasis(frequencies, orders)
+        phase = basis.phase(mc, q, s1, s2) if spinning else basis.phase(mc, q)
     return phase[0] if scalar else phase
 
 
@@ -276,6 +346,8 @@ def taylorf2(
     effective_distance: ArrayLike,
     coalescence_time: ArrayLike = 0.0,
     phase: ArrayLike = 0.0,
+    spin1: ArrayLike = 0.0,
+    spin2: ArrayLike = 0.0,
 ) -> NDArray[np.complex128]:
     """TaylorF2 strain ``h~(f)`` as seen by one detector.
 
@@ -297,12 +369,12 @@ def taylorf2(
     Complex array ``(n, nf)`` (``(nf,)`` when all parameters are scalars), 1/Hz.
     """
     f = np.asarray(frequencies, dtype=float)
-    params = [chirp_mass, mass_ratio, effective_distance, coalescence_time, phase]
+    params = [chirp_mass, mass_ratio, effective_distance, coalescence_time, phase, spin1, spin2]
     scalar = all(np.ndim(p) == 0 for p in params)
-    mc, q, dist, tc, phi = (np.atleast_1d(np.asarray(p, dtype=float)) for p in params)
-    n = max(x.size for x in (mc, q, dist, tc, phi))
-    mc, q, dist, tc, phi = (np.broadcast_to(x, (n,)) for x in (mc, q, dist, tc, phi))
-    psi = taylorf2_phase(f, mc, q)
+    mc, q, dist, tc, phi, s1, s2 = np.broadcast_arrays(
+        *(np.atleast_1d(np.asarray(p, dtype=float)) for p in params)
+    )
+    psi = taylorf2_phase(f, mc, q, spin1=s1, spin2=s2)
     psi += 2.0 * np.pi * tc[:, None] * f[None, :] - phi[:, None] - np.pi / 4.0
     amp0 = (
         np.sqrt(5.0 / 24.0)
@@ -318,7 +390,11 @@ def taylorf2(
 
 
 def time_to_coalescence(
-    frequencies: ArrayLike, chirp_mass: ArrayLike, mass_ratio: ArrayLike
+    frequencies: ArrayLike,
+    chirp_mass: ArrayLike,
+    mass_ratio: ArrayLike,
+    spin1: ArrayLike = 0.0,
+    spin2: ArrayLike = 0.0,
 ) -> Array:
     """Time before coalescence at which the signal sweeps through ``f``, in s.
 
@@ -332,7 +408,7 @@ def time_to_coalescence(
     mc = np.asarray(chirp_mass, dtype=float)
     eta = symmetric_mass_ratio(mass_ratio)
     total = mc * eta ** (-0.6) * MSUN_SECONDS
-    coeffs = phase_coefficients(eta)
+    coeffs = phase_coefficients(eta, spin1, spin2)
     v = np.cbrt(np.pi * total * f)
     log_v = np.log(v)
     # d/dv [3/(128 eta) (a_k + b_k ln v) v^{k-5}] and dv/df = v / (3 f).
@@ -342,3 +418,41 @@ def time_to_coalescence(
     dpsi_dv *= 3.0 / (128.0 * eta)
     dpsi_df = dpsi_dv * v / (3.0 * f)
     return np.asarray(-dpsi_df / (2.0 * np.pi), dtype=float)
+
+
+def phase_derivatives(
+    frequencies: ArrayLike,
+    chirp_mass: ArrayLike,
+    mass_ratio: ArrayLike,
+    spin1: ArrayLike = 0.0,
+    spin2: ArrayLike = 0.0,
+) -> tuple[Array, Array]:
+    """First and second frequency derivatives of :func:`taylorf2_phase`, s and s^2.
+
+    ``dPsi/df = -2 pi (t_c - t(f))`` (Cutler & Flanagan 1994, Eq. 3.3) and its
+    derivative, from the series differentiated term by term in ``v`` with
+    ``dv/df = v / (3 f)``. Arguments broadcast like :func:`time_to_coalescence`.
+    """
+    f = np.atleast_1d(np.asarray(frequencies, dtype=float))
+    eta = symmetric_mass_ratio(mass_ratio)
+    total = np.asarray(chirp_mass, dtype=float) * eta ** (-0.6) * MSUN_SECONDS
+    coeffs = phase_coefficients(eta, spin1, spin2)
+    v = np.cbrt(np.pi * total * f)
+    log_v = np.log(v)
+    d1 = np.zeros_like(v)
+    d2 = np.zeros_like(v)
+    for k, (a_k, b_k) in coeffs.items():
+        # g = (a + b ln v) v^p with p = k - 5: g' = (p (a + b ln v) + b) v^{p-1},
+        # g'' = (p (p-1) (a + b ln v) + (2p - 1) b) v^{p-2}.
+        p = k - 5.0
+        base = a_k + b_k * log_v
+        d1 += (p * base + b_k) * v ** (p - 1.0)
+        d2 += (p * (p - 1.0) * base + (2.0 * p - 1.0) * b_k) * v ** (p - 2.0)
+    d1 *= 3.0 / (128.0 * eta)
+    d2 *= 3.0 / (128.0 * eta)
+    dv = v / (3.0 * f)
+    # d2Psi/df2 = Psi_vv (dv/df)^2 + Psi_v d2v/df2, with d2v/df2 = -2 v / (9 f^2).
+    return (
+        np.asarray(d1 * dv, dtype=float),
+        np.asarray(d2 * dv**2 - d1 * 2.0 * v / (9.0 * f**2), dtype=float),
+    )

@@ -22,6 +22,7 @@ from typing import Any
 from estimator import __version__
 from estimator.analysis import AnalysisSettings
 from estimator.errors import InputError
+from estimator.models import MODEL_CHOICES
 
 from .commands import COMMANDS, add_commands
 from .drill import add_simulate_parser
@@ -176,6 +177,26 @@ def _add_analysis_options(p: argparse.ArgumentParser) -> None:
         default=0.1,
         help="half-width of the coalescence-time prior around the trigger, s (0.1)",
     )
+    p.add_argument(
+        "--model",
+        choices=MODEL_CHOICES,
+        default="auto",
+        help="waveform model: merger (inspiral continued through merger and ringdown), "
+        "taylorf2 (inspiral ending at the ISCO), auto (merger where it matters; default)",
+    )
+    p.add_argument(
+        "--spin-max",
+        type=float,
+        default=0.99,
+        help="largest aligned-spin magnitude, uniform prior on each spin (0.99; 0.05 is a "
+        "common neutron-star choice; 0 fixes the spins at zero)",
+    )
+    p.add_argument(
+        "--no-gating",
+        dest="gating",
+        action="store_false",
+        help="do not gate loud short glitches away from the signal",
+    )
     p.add_argument("--seed", type=int, help="random seed (drawn and recorded when absent)")
     p.add_argument("--label", default="", help="a name for the report")
     p.add_argument("--out", type=Path, required=True, help="output folder")
@@ -219,6 +240,9 @@ def _settings(args: argparse.Namespace) -> AnalysisSettings:
         distance_max=args.distance_max,
         time_window=args.time_window,
         seed=args.seed,
+        spin_max=args.spin_max,
+        model=args.model,
+        gating=args.gating,
     )
 
 

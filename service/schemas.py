@@ -55,6 +55,18 @@ class AnalysisCreate(ApiModel):
     f_high: float | None = Field(None, gt=0, description="high end of the band, Hz")
     label: str = Field("", max_length=200, description="a free-text name for the report")
     seed: int | None = Field(None, ge=0, description="random seed (drawn when absent)")
+    model: Literal["auto", "merger", "taylorf2"] = Field(
+        "auto",
+        description="waveform model: 'merger' (inspiral continued through merger and "
+        "ringdown), 'taylorf2' (inspiral ending at the ISCO) or 'auto' (merger where it "
+        "matters in the band)",
+    )
+    spin_max: float = Field(
+        0.99, ge=0.0, lt=1.0,
+        description="largest aligned-spin magnitude; uniform prior on each spin "
+        "(0.05 is a common neutron-star choice; 0 fixes the spins at zero)",
+    )
+    gating: bool = Field(True, description="gate loud short glitches away from the signal")
     asd: bool = Field(False, description="the psd file's second column is an amplitude spectrum")
 
 

@@ -42,7 +42,9 @@ _CHUNK = 1 << 20
 #: A detector's name in a field name: a site name (as :mod:`estimator.sites` allows).
 DETECTOR_NAME = re.compile(r"[A-Za-z0-9_-]{1,32}")
 _PER_DETECTOR = ("strain", "psd")
-_SETTINGS_KEYS = {"trigger_time", "f_low", "f_high", "chirp_mass_guess", "seed"}
+_SETTINGS_KEYS = {
+    "trigger_time", "f_low", "f_high", "chirp_mass_guess", "seed", "model", "spin_max", "gating"
+}
 _FILE = {"type": "string", "contentMediaType": "application/octet-stream"}
 #: What OpenAPI cannot say with fixed names: the per-detector fields of a network.
 NETWORK_FORM_SCHEMA: dict[str, Any] = {"requestBody": {"content": {"multipart/form-data": {
