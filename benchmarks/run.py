@@ -167,7 +167,7 @@ def _e2e_case(drill: Drill, folder: Path, repeats: int) -> dict[str, Any]:
     runs: list[dict[str, Any]] = []
     for r in range(repeats):
         settings = AnalysisSettings(trigger_time=drill.trigger_time, f_low=drill.source.f_low,
-                                    seed=1000 + r)
+                                    seed=1000 + r, spin_max=drill.source.spin_max)
         request = AnalysisRequest(strain_path=strain, settings=settings, psd_path=psd)
         clock, cpu = time.perf_counter(), time.process_time()
         summary = analyze_files(request, folder / f"out-{r}")
@@ -186,6 +186,7 @@ def _e2e_case(drill: Drill, folder: Path, repeats: int) -> dict[str, Any]:
         "case": drill.source.name, "duration_s": drill.source.duration,
         "chirp_mass": drill.source.chirp_mass, "mass_ratio": drill.source.mass_ratio,
         "optimal_snr": drill.optimal_snr, "f_low": drill.source.f_low, "repeats": repeats,
+        "spin_max": drill.source.spin_max,
         "wall_s": statistics.median(r["wall_s"] for r in runs),
         "cpu_s": statistics.median(r["cpu_s"] for r in runs),
         "min_wall_s": min(r["wall_s"] for r in runs),

@@ -24,12 +24,14 @@ from numpy.typing import NDArray
 from .conditioning import DetectorData
 from .waveform import isco_frequency, symmetric_mass_ratio, time_to_coalescence
 
-__all__ = ["SAMPLER_NAMES", "ArrivalTime", "reference_frequency"]
+__all__ = ["SAMPLER_NAMES", "SPIN_COORDINATES", "ArrivalTime", "reference_frequency"]
 
 Array = NDArray[np.float64]
 
 #: Names of the sampler's coordinates, in the chain's column order.
 SAMPLER_NAMES = ("chirp_mass", "mass_ratio", "effective_distance", "arrival_time")
+#: Coordinates appended when the aligned spins are sampled.
+SPIN_COORDINATES = ("effective_spin", "spin2")
 
 
 def reference_frequency(data: DetectorData, chirp_mass: float, mass_ratio: float) -> float:
@@ -49,9 +51,13 @@ def reference_frequency(data: DetectorData, chirp_mass: float, mass_ratio: float
 class ArrivalTime:
     """Map between physical parameters and the sampler's (arrival-time) coordinates.
 
-    ``names`` beyond :data:`SAMPLER_NAMES` (the aligned spins) pass through unchanged;
-    the lag then includes their terms (the spins move the signal's arrival as much as
-    the masses do); the map stays a shear in ``t_c`` with unit Jacobian.
+    With aligned spins (``names`` ending in :data:`SPIN_COORDINATES`) the sampler
+    moves in the effective spin ``chi_eff = (spin1 + q spin2)/(1 + q)`` and ``spin2``:
+    the data measure mostly ``chi_eff`` (with the masses), so the posterior is a
+    nearly flat slab in ``spin2`` rather than a surface twisting with ``q`` in
+    ``(spin1, spin2)``; :meth:`log_jacobian` carries the change of variables. The
+    lag then includes the spins' terms (they move the signal's arrival as much as
+    the masses do); the time map stays a shear with unit Jacobian.
     """
 
     f_ref: float
@@ -84,22 +90,42 @@ class ArrivalTime:
         )
         return np.asarray(np.where(ok, lag.reshape(mc.shape), 0.0), dtype=float)
 
-    def _spins(self, x: Mapping[str, Array]) -> tuple[Array | None, Array | None]:
-        if "spin1" not in self.names:
+    @property
+    def spinning(self) -> bool:
+        """Whether the aligned spins are among the coordinates."""
+        return "effective_spin" in self.names
+
+    def _spins(self, p: Mapping[str, Array]) -> tuple[Array | None, Array | None]:
+        """Physical ``(spin1, spin2)`` of physical parameters ``p`` (None without spins)."""
+        if not self.spinning:
             return None, None
-        return np.asarray(x["spin1"]), np.asarray(x["spin2"])
+        return np.asarray(p["spin1"]), np.asarray(p["spin2"])
+
+    def log_jacobian(self, u: Mapping[str, Array]) -> Array:
+        """``ln |d(physical)/d(sampler)|`` at sampler coordinates ``u``.
+
+        Zero without spins (the time shear has unit Jacobian). With spins,
+        ``spin1 = (1 + q) chi_eff - q spin2`` gives ``|d(spin1, spin2)/d(chi_eff, spin2)|
+        = 1 + q``; a density uniform in ``(spin1, spin2)`` is ``(1 + q)`` times that in
+        the sampler's coordinates.
+        """
+        q = np.asarray(u["mass_ratio"], dtype=float)
+        if not self.spinning:
+            return np.zeros(q.shape)
+        return np.asarray(np.log1p(np.where(q > -1.0, q, 0.0)), dtype=float)
 
     def to_physical(self, u: Mapping[str, Array]) -> dict[str, Array]:
         """Sampler coordinates -> ``chirp_mass, mass_ratio, effective_distance,
         coalescence_time``."""
         mc, q = np.asarray(u["chirp_mass"]), np.asarray(u["mass_ratio"])
-        out = {
-            "chirp_mass": mc,
-            "mass_ratio": q,
-            "effective_distance": np.asarray(u["effective_distance"]),
-            "coalescence_time": np.asarray(u["arrival_time"]) + self.lag(mc, q, *self._spins(u)),
-        }
-        out.update({k: np.asarray(u[k]) for k in self.names if k not in SAMPLER_NAMES})
+        out = {"chirp_mass": mc, "mass_ratio": q,
+               "effective_distance": np.asarray(u["effective_distance"])}  # fmt: skip
+        if self.spinning:
+            spin2 = np.asarray(u["spin2"])
+            out["spin1"] = (1.0 + q) * np.asarray(u["effective_spin"]) - q * spin2
+            out["spin2"] = spin2
+        spins = self._spins(out)
+        out["coalescence_time"] = np.asarray(u["arrival_time"]) + self.lag(mc, q, *spins)
         return out
 
     def from_physical(self, p: Mapping[str, Array]) -> dict[str, Array]:
@@ -111,5 +137,8 @@ class ArrivalTime:
             "effective_distance": np.asarray(p["effective_distance"]),
             "arrival_time": np.asarray(p["coalescence_time"]) - self.lag(mc, q, *self._spins(p)),
         }
-        out.update({k: np.asarray(p[k]) for k in self.names if k not in SAMPLER_NAMES})
+        if self.spinning:
+            spin1, spin2 = np.asarray(p["spin1"]), np.asarray(p["spin2"])
+            out["effective_spin"] = (spin1 + q * spin2) / (1.0 + q)
+            out["spin2"] = spin2
         return out

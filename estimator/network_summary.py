@@ -234,9 +234,13 @@ def build_network_summary(
         },
         "inputs": dict(inputs),
         "model": {
+            "name": "taylorf2",
             "waveform": "TaylorF2: 3.5PN point-particle phase, restricted Newtonian amplitude, "
-            "ending at the Schwarzschild ISCO of the total mass; no spins, tides, "
-            "merger or ringdown; dominant quadrupole harmonic only",
+            "ending at the Schwarzschild ISCO of the total mass; no tides, merger or "
+            "ringdown; dominant quadrupole harmonic only",
+            "spins": "spins fixed at zero (the network analysis does not yet use the merger "
+            "model or sample spins; the model and spin_max settings apply to one-detector "
+            "analyses)",
             "noise": "stationary Gaussian noise in each detector, independent between "
             "detectors, described by each detector's one-sided PSD",
             "cosmology": "flat Lambda-CDM, H0 = 67.66 km/s/Mpc, Omega_m = 0.30966 (Planck 2018)",

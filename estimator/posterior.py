@@ -20,7 +20,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .conditioning import DetectorData
-from .coordinates import SAMPLER_NAMES, ArrivalTime, reference_frequency
+from .coordinates import SAMPLER_NAMES, SPIN_COORDINATES, ArrivalTime, reference_frequency
 from .errors import InputError
 from .fisher import FisherEstimate, mass_ratio_of_eta
 from .likelihood import ExactLikelihood, Likelihood
@@ -108,7 +108,7 @@ def _start_walkers(
     cov = fisher.covariance * np.outer(shrink, shrink)
     center = {k: np.array([v]) for k, v in fisher.center.items()}
     center["mass_ratio"] = mass_ratio_of_eta(center.pop("symmetric_mass_ratio"))
-    spinning = "spin1" in coords.names
+    spinning = coords.spinning
     depth = START_DEPTH_SPINNING if spinning else START_DEPTH
     if spinning:  # the fiducial is non-spinning; walkers start around zero spin
         for name in ("spin1", "spin2"):
@@ -197,7 +197,7 @@ def sample_posterior(
     n_bins = settings.n_bins
     center = dict(fiducial)
     notes: list[str] = []
-    names_ = SAMPLER_NAMES + (SPIN_NAMES if prior.spinning else ())
+    names_ = SAMPLER_NAMES + (SPIN_COORDINATES if prior.spinning else ())
     for name in SPIN_NAMES if prior.spinning else ():
         center.setdefault(name, 0.0)
     coords = ArrivalTime(
@@ -243,6 +243,8 @@ def sample_posterior(
             wide[:, 2] = np.abs(wide[:, 2])
             wide[:, 4:] = np.clip(wide[:, 4:], -prior.spin_max, prior.spin_max)
             points = coords.to_physical({k: wide[:, j] for j, k in enumerate(names)})
+            for name in SPIN_NAMES if prior.spinning else ():
+                points[name] = np.clip(points[name], -prior.spin_max, prior.spin_max)
             for _ in range(2):
                 gap = np.max(np.abs(exact.log_likelihood(points) - binned.log_likelihood(points)))
                 if gap <= settings.likelihood_tolerance:
@@ -252,7 +254,7 @@ def sample_posterior(
 
         def log_post(u: Mapping[str, Array], like: Binned = binned) -> Array:
             p = coords.to_physical(u)
-            lp = prior.log_prob(p)
+            lp = prior.log_prob(p) + coords.log_jacobian(u)
             out = np.full(lp.shape, -np.inf)
             ok = np.isfinite(lp)
             if np.any(ok):

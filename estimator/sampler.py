@@ -148,7 +148,9 @@ def _autocorr_time(
     across whatever seam it is cut at and its estimate would not settle.
     """
     if not wrap:
-        return np.asarray(sampler.get_autocorr_time(discard=discard, tol=0), dtype=float)
+        # A walker that never moved gives nan (see below): "not converged" to the caller.
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.asarray(sampler.get_autocorr_time(discard=discard, tol=0), dtype=float)
     chain = sampler.get_chain(discard=discard)
     columns = [chain[..., j] for j in range(chain.shape[-1]) if j not in wrap]
     for j, period in wrap.items():

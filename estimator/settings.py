@@ -32,7 +32,7 @@ class AnalysisSettings:
     gating: bool = True
     time_window: float = 0.1
     seed: int | None = None
-    walkers: int = 32
+    walkers: int = 64
     max_steps: int = 20_000
     target_effective_samples: float = 2000.0
     n_bins: int = 96

@@ -72,7 +72,8 @@ class Injection:
     phase: float = 0.0
     spin1: float = 0.0
     spin2: float = 0.0
-    #: Waveform injected: a model of :mod:`estimator.models` (``merger``, ``taylorf2``).
+    #: Waveform injected: a model of :mod:`estimator.models` (``merger``, ``taylorf2``),
+    #: or ``timedomain`` (:mod:`estimator.timedomain`, an independent waveform).
     #: The merger model equals TaylorF2 up to the ISCO and continues smoothly beyond.
     model: str = "merger"
 
@@ -99,6 +100,8 @@ def injection_strain(
         > available
     ):
         f_start *= 1.05
+    if injection.model == "timedomain":
+        return _timedomain_strain(injection, n_samples, sample_rate, start_time, f_start)
     h = np.zeros(f.size, dtype=complex)
     on = f >= f_start
     h[on] = model_strain(
@@ -114,6 +117,31 @@ def injection_strain(
     )
     ramp = np.clip((f - f_start) / (0.1 * f_start), 0.0, 1.0)
     return np.asarray(h * 0.5 * (1.0 - np.cos(np.pi * ramp)), dtype=complex)
+
+
+def _timedomain_strain(
+    injection: Injection, n_samples: int, sample_rate: float, start_time: float, f_start: float
+) -> NDArray[np.complex128]:
+    """rFFT of the time-domain waveform of :mod:`estimator.timedomain` on the segment.
+
+    Its ``merger_time`` (end of the integrated inspiral) is set to the injection's
+    ``coalescence_time``; the waveform carries its own roll-on from ``f_start``.
+    """
+    from .timedomain import td_strain
+
+    times = start_time + np.arange(n_samples) / sample_rate
+    strain = td_strain(
+        times,
+        chirp_mass=injection.chirp_mass,
+        mass_ratio=injection.mass_ratio,
+        spin1=injection.spin1,
+        spin2=injection.spin2,
+        effective_distance=injection.effective_distance,
+        merger_time=injection.coalescence_time,
+        phase=injection.phase,
+        f_start=f_start,
+    )
+    return np.asarray(scipy.fft.rfft(strain) / sample_rate, dtype=complex)
 
 
 def simulate_segment(
@@ -218,6 +246,7 @@ def simulate_network(
                 injection.luminosity_distance,
                 arrival,
                 injection.phase,
+                model="taylorf2",  # the network analysis' model
             ),
             n_samples=n,
             sample_rate=sample_rate,

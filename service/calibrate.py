@@ -31,6 +31,7 @@ from estimator.calibration import credible_level, summarize_levels
 from estimator.priors import InspiralPrior
 from estimator.search import search_chirp_mass
 from estimator.simulate import Injection, design_spectrum, simulate_segment
+from estimator.spins import effective_spin
 from estimator.stats import credible_interval
 from estimator.summary import PARAMETER_LABELS
 from estimator.validation import default_f_high
@@ -40,7 +41,15 @@ from .drill import optimal_snr
 __all__ = ["CALIBRATION_FILES", "CalibrationSetup", "run_calibration", "run_injection"]
 
 #: The sampled parameters whose calibration is tested.
-TESTED = ("chirp_mass", "mass_ratio", "effective_distance", "coalescence_time")
+TESTED = (
+    "chirp_mass",
+    "mass_ratio",
+    "effective_distance",
+    "coalescence_time",
+    "spin1",
+    "spin2",
+    "effective_spin",
+)
 CALIBRATION_FILES = ("calibration.json", "runs.csv", "pp_plot.png")
 _START = 1_300_000_000.0  # GPS start of every simulated segment (arbitrary)
 
@@ -66,6 +75,7 @@ class CalibrationSetup:
     time_window: float = 0.1
     snr_threshold: float = 8.0
     max_attempts: int = 2000
+    spin_max: float = 0.99
 
     @property
     def trigger_time(self) -> float:
@@ -82,6 +92,7 @@ class CalibrationSetup:
             distance_max=self.distance_max,
             time_window=self.time_window,
             seed=seed,
+            spin_max=self.spin_max,
         )
 
     def prior(self) -> InspiralPrior:
@@ -100,12 +111,19 @@ def run_injection(setup: CalibrationSetup, index: int) -> dict[str, Any]:
     while attempt < setup.max_attempts:
         attempt += 1
         truth = {k: float(v[0]) for k, v in prior.sample(rng, 1).items()}
+        truth.setdefault("spin1", 0.0)
+        truth.setdefault("spin2", 0.0)
+        truth["effective_spin"] = float(
+            effective_spin(truth["mass_ratio"], truth["spin1"], truth["spin2"])
+        )
         injection = Injection(
             truth["chirp_mass"],
             truth["mass_ratio"],
             truth["effective_distance"],
             setup.trigger_time + truth["coalescence_time"],
             float(rng.uniform(0.0, 2.0 * np.pi)),
+            spin1=truth["spin1"],
+            spin2=truth["spin2"],
         )
         segment = simulate_segment(
             spectrum,
@@ -146,14 +164,19 @@ def run_injection(setup: CalibrationSetup, index: int) -> dict[str, Any]:
         ),
         "seed": seed,
     }
-    for name in TESTED:
-        median, lower, upper = credible_interval(result.samples[name], 0.9)
+    samples = dict(result.samples)
+    if "spin1" in samples:
+        samples["effective_spin"] = effective_spin(
+            samples["mass_ratio"], samples["spin1"], samples["spin2"]
+        )
+    for name in (k for k in TESTED if k in samples):
+        median, lower, upper = credible_interval(samples[name], 0.9)
         row |= {
             f"{name}_truth": truth[name],
             f"{name}_median": median,
             f"{name}_lower_90": lower,
             f"{name}_upper_90": upper,
-            f"{name}_level": credible_level(result.samples[name], truth[name]),
+            f"{name}_level": credible_level(samples[name], truth[name]),
         }
     row |= {
         "converged": result.chain.converged,
@@ -202,7 +225,8 @@ def run_calibration(
                 os.environ[key] = value
     rows.sort(key=lambda r: int(r["index"]))
     wall = time.perf_counter() - clock
-    summary = summarize_levels({k: [r[f"{k}_level"] for r in rows] for k in TESTED})
+    tested = [k for k in TESTED if f"{k}_level" in rows[0]]
+    summary = summarize_levels({k: [r[f"{k}_level"] for r in rows] for k in tested})
     out_dir.mkdir(parents=True, exist_ok=True)
     with (out_dir / "runs.csv").open("w", newline="", encoding="utf-8") as fh:
         writer = csv.DictWriter(fh, fieldnames=list(rows[0]))

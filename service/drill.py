@@ -13,12 +13,11 @@ from typing import Any
 
 import numpy as np
 
-from estimator.conditioning import condition
 from estimator.data import NoiseSpectrum, StrainSegment
 from estimator.errors import InputError
 from estimator.io import read_psd
-from estimator.likelihood import ExactLikelihood
-from estimator.simulate import Injection, design_spectrum, simulate_segment
+from estimator.simulate import Injection, design_spectrum, injection_strain, simulate_segment
+from estimator.spectrum import interpolate_psd
 
 __all__ = [
     "NETWORK_ONLY",
@@ -50,19 +49,21 @@ def optimal_snr(
     start_time: float,
     f_low: float,
 ) -> float:
-    """Optimal SNR ``sqrt(<h|h>)`` of ``injection`` in the band ``[f_low, 0.9 Nyquist]``."""
-    blank = StrainSegment(np.zeros(round(duration * sample_rate)), sample_rate, start_time)
+    """Optimal SNR ``sqrt(<h|h>)`` of ``injection`` in the band ``[f_low, 0.9 Nyquist]``.
+
+    ``<h|h> = 4 df sum |h(f)|^2 / S(f)`` (Cutler & Flanagan 1994, Eq. 2.4) of the
+    injected waveform itself (its model, spins and roll-on), on the segment's grid.
+    """
+    n = round(duration * sample_rate)
     f_high = min(0.45 * sample_rate, float(spectrum.frequencies[-1]))
-    data = condition(blank, spectrum, f_low=f_low, f_high=f_high)
-    like = ExactLikelihood([data], injection.coalescence_time)
-    params = {
-        "chirp_mass": np.array([injection.chirp_mass]),
-        "mass_ratio": np.array([injection.mass_ratio]),
-        "effective_distance": np.array([injection.effective_distance]),
-        "coalescence_time": np.array([0.0]),
-    }
-    _, hh = like.overlaps(params)
-    return float(np.sqrt(hh.sum()))
+    h = injection_strain(
+        injection, n_samples=n, sample_rate=sample_rate, start_time=start_time,
+        f_start=max(f_low - 5.0, 1.0),
+    )  # fmt: skip
+    f = np.arange(h.size) * (sample_rate / n)
+    band = (f >= f_low) & (f <= f_high)
+    psd = interpolate_psd(spectrum, f[band])
+    return float(np.sqrt(4.0 * (sample_rate / n) * np.sum(np.abs(h[band]) ** 2 / psd)))
 
 
 def write_strain(segment: StrainSegment, path: Path, fmt: str) -> Path:
@@ -139,6 +140,15 @@ def add_simulate_parser(sub: Any) -> None:
         help="strain file format (csv: two columns, GPS time and strain)",
     )
     sim.add_argument("--seed", type=int, default=1, help="noise seed (1)")
+    sim.add_argument("--spin1", type=float, default=0.0, help="aligned spin of the heavier body")
+    sim.add_argument("--spin2", type=float, default=0.0, help="aligned spin of the lighter body")
+    sim.add_argument(
+        "--waveform",
+        choices=("merger", "taylorf2", "timedomain"),
+        default="merger",
+        help="injected waveform: merger (default), taylorf2 (ends at the ISCO), or timedomain "
+        "(an independent waveform integrated from the PN energy and flux, plus a ringdown)",
+    )
     from .network_drill import add_network_drill_options
 
     add_network_drill_options(sim)
@@ -210,7 +220,13 @@ def simulate_files(args: argparse.Namespace) -> dict[str, Any]:
         raise InputError(msg, field="orientation_factor")
     tc = drill_coalescence_time(args)
     distance = args.distance
-    injection = Injection(args.chirp_mass, args.mass_ratio, distance / w, tc, args.phase)
+    for name in ("spin1", "spin2"):
+        value = getattr(args, name)
+        if not (np.isfinite(value) and abs(value) < 1.0):
+            msg = f"--{name} {value:g} must lie strictly between -1 and 1"
+            raise InputError(msg, field=name)
+    extra = {"spin1": args.spin1, "spin2": args.spin2, "model": args.waveform}
+    injection = Injection(args.chirp_mass, args.mass_ratio, distance / w, tc, args.phase, **extra)
     snr = optimal_snr(
         injection,
         spectrum,
@@ -221,7 +237,9 @@ def simulate_files(args: argparse.Namespace) -> dict[str, Any]:
     )
     if args.snr is not None:
         distance *= snr / args.snr
-        injection = Injection(args.chirp_mass, args.mass_ratio, distance / w, tc, args.phase)
+        injection = Injection(
+            args.chirp_mass, args.mass_ratio, distance / w, tc, args.phase, **extra
+        )
         snr = args.snr
     rng = np.random.default_rng(args.seed)
     segment = simulate_segment(
@@ -241,6 +259,9 @@ def simulate_files(args: argparse.Namespace) -> dict[str, Any]:
         "effective_distance": injection.effective_distance,
         "coalescence_time": injection.coalescence_time,
         "phase": injection.phase,
+        "spin1": injection.spin1,
+        "spin2": injection.spin2,
+        "waveform": injection.model,
         "optimal_snr": snr,
         "units": {
             "masses": "Msun (detector frame)",

@@ -150,7 +150,8 @@ def simulate_network_files(args: argparse.Namespace) -> dict[str, Any]:
         if value is not None and not (math.isfinite(value) and value > 0):
             raise _fail(f"{value:g} is not a positive number", key)
     rho_opt = optimal_snr(
-        Injection(args.chirp_mass, args.mass_ratio, distance, tc, args.phase),
+        # The network model is TaylorF2 without spins (simulate_network injects it).
+        Injection(args.chirp_mass, args.mass_ratio, distance, tc, args.phase, model="taylorf2"),
         spectrum,
         duration=args.duration,
         sample_rate=args.sample_rate,

@@ -146,11 +146,16 @@ def analyze_files(
     return write_outputs(result, out_dir, inputs=inputs, label=label, progress=progress)
 
 
+#: Columns added to posterior_samples.csv when the spins were sampled.
+SPIN_COLUMNS = ("spin1", "spin2", "effective_spin")
+
+
 def _write_samples(path: Path, derived: Mapping[str, np.ndarray]) -> None:
-    table = np.column_stack([derived[c] for c in SAMPLE_COLUMNS])
-    fmt = ["%.10g"] * len(SAMPLE_COLUMNS)
-    fmt[SAMPLE_COLUMNS.index("coalescence_time")] = "%.6f"
-    np.savetxt(path, table, delimiter=",", header=",".join(SAMPLE_COLUMNS), comments="", fmt=fmt)
+    columns = list(SAMPLE_COLUMNS) + [c for c in SPIN_COLUMNS if c in derived]
+    table = np.column_stack([derived[c] for c in columns])
+    fmt = ["%.10g"] * len(columns)
+    fmt[columns.index("coalescence_time")] = "%.6f"
+    np.savetxt(path, table, delimiter=",", header=",".join(columns), comments="", fmt=fmt)
 
 
 def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folder: Path) -> None:
@@ -168,7 +173,10 @@ def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folde
         "mass_ratio": "$q$",
         "luminosity_distance": "$D_L$ [Mpc]",
         "coalescence_offset": "$t_c$ − trigger [ms]",
+        "effective_spin": r"$\chi_\mathrm{eff}$",
     }
+    if "effective_spin" in derived:
+        corner_samples["effective_spin"] = derived["effective_spin"]
     corner_args = (corner_samples, folder / PLOT_FILES["corner"])
     pool = _plot_pool()
     pending = pool.submit(_corner, *corner_args, labels) if pool is not None else None

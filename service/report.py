@@ -53,6 +53,8 @@ LABELS: Mapping[str, str] = {
     "snr": "Matched-filter SNR", "network_snr": "Network matched-filter SNR",
     "inclination": "Inclination ι", "polarization_angle": "Polarisation angle ψ",
     "right_ascension": "Right ascension α", "declination": "Declination δ",
+    "effective_spin": "Effective spin χ_eff", "spin1": "Primary spin χ₁",
+    "spin2": "Secondary spin χ₂",
 }
 #: Table groups: (title, note, parameter names).
 GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
@@ -65,6 +67,9 @@ GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
      ("luminosity_distance", "effective_distance", "orientation_factor", "coalescence_time")),
     ("Sky position and orientation", "equatorial coordinates, J2000",
      ("right_ascension", "declination", "inclination", "polarization_angle")),
+    ("Spins", "components along the orbital angular momentum; "
+     "χ_eff = (m₁χ₁ + m₂χ₂)/(m₁ + m₂), the combination the data measure best",
+     ("effective_spin", "spin1", "spin2")),
     ("Signal strength", "", ("snr", "network_snr")),
 )
 UNITS: Mapping[str, str] = {"Msun": "M☉", "": "—", "deg": "°"}
@@ -76,6 +81,8 @@ QUALITY_TITLES: Mapping[str, str] = {
     "segment_edges": "Signal inside the segment",
     "band_edge": "Signal inside the frequency band",
     "likelihood_check": "Fast likelihood agrees with exact",
+    "low_frequency_cut": "Segment long enough for the band",
+    "gating": "Glitches away from the signal gated",
 }
 #: Plot keys in report order; their titles and captions live in templates/figures.html.
 PLOT_ORDER = ("sky_map", "corner", "whitened", "time_frequency", "spectrum", "traces")
@@ -288,8 +295,25 @@ def build_context(summary: Mapping[str, Any], *, images: Mapping[str, str],
         "inputs": _inputs(summary.get("inputs", {})), "seed": format_value(settings.get("seed")),
         "software": f"{software.get('name', 'chirpcast')} {software.get('version', '')}".strip(),
         "schema_version": summary.get("schema_version"),
+        "model_text": _model_text(summary.get("model", {})),
         **network_context(summary),
     }
+
+
+#: What the caution says of a summary that names no model (written before models had names).
+_DEFAULT_MODEL_TEXT = (
+    "the TaylorF2 inspiral (3.5PN phase, restricted amplitude) with no spins, no tidal "
+    "effects and no merger or ringdown"
+)
+
+
+def _model_text(model: Mapping[str, Any]) -> str:
+    """The caution's words for the waveform model and the spins of summary.json."""
+    waveform = model.get("waveform")
+    if not isinstance(waveform, str):
+        return _DEFAULT_MODEL_TEXT
+    spins = model.get("spins")
+    return f"{waveform}; {spins}" if isinstance(spins, str) else waveform
 
 
 @lru_cache(maxsize=1)

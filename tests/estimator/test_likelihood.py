@@ -66,7 +66,8 @@ def test_frequency_domain_snr_equals_time_domain_matched_filter():
     fs, duration, f_low, f_high = 2048.0, 16.0, 20.0, 800.0
     n = int(fs * duration)
     inj = Injection(
-        chirp_mass=12.0, mass_ratio=0.6, effective_distance=400.0, coalescence_time=START + 12.0
+        chirp_mass=12.0, mass_ratio=0.6, effective_distance=400.0, coalescence_time=START + 12.0,
+        model="taylorf2",
     )
     h_f = injection_strain(inj, n_samples=n, sample_rate=fs, start_time=START, f_start=15.0)
     h_t = scipy.fft.irfft(h_f, n) * fs
@@ -131,7 +132,7 @@ def test_phase_marginalisation_equals_quadrature():
         sample_rate=2048.0,
         start_time=START,
         rng=rng,
-        injection=Injection(20.0, 0.8, 3000.0, START + 6.0, 0.4),
+        injection=Injection(20.0, 0.8, 3000.0, START + 6.0, 0.4, model="taylorf2"),
     )
     data = condition(seg, SPECTRUM, f_low=20.0, f_high=900.0)
     p = dict(chirp_mass=20.1, mass_ratio=0.8, effective_distance=3200.0, coalescence_time=0.001)
@@ -166,7 +167,7 @@ def test_relative_binning_matches_exact_near_fiducial(mc, q):
     rng = np.random.default_rng(4)
     duration = 64.0 if mc < 2 else 8.0
     tc = START + duration - 2.0
-    inj = Injection(mc, q, 120.0 if mc < 2 else 900.0, tc, 0.3)
+    inj = Injection(mc, q, 120.0 if mc < 2 else 900.0, tc, 0.3, model="taylorf2")
     seg = simulate_segment(
         SPECTRUM,
         duration=duration,
@@ -213,7 +214,8 @@ def test_binned_fast_path_equals_its_general_form(mc, f_high):
     tc = START + duration - 2.0
     seg = simulate_segment(SPECTRUM, duration=duration, sample_rate=rate, start_time=START,
                            rng=np.random.default_rng(6),
-                           injection=Injection(mc, 0.8, 300.0, tc, 0.3), f_start=25.0)
+                           injection=Injection(mc, 0.8, 300.0, tc, 0.3, model="taylorf2"),
+                           f_start=25.0)
     data = condition(seg, SPECTRUM, f_low=30.0, f_high=f_high)
     fid = {"chirp_mass": mc, "mass_ratio": 0.8, "effective_distance": 300.0,
            "coalescence_time": 0.0}
@@ -233,7 +235,7 @@ def test_binned_overlap_has_the_exact_phase():
     """The binned z carries the exact z's phase, not only its modulus (the report's
     best-fit model is drawn at arg z)."""
     tc = START + 20.0
-    inj = Injection(20.0, 0.7, 300.0, tc, 0.9)
+    inj = Injection(20.0, 0.7, 300.0, tc, 0.9, model="taylorf2")
     data = condition(
         simulate_segment(SPECTRUM, duration=32.0, sample_rate=2048.0, start_time=START,
                          rng=np.random.default_rng(12), injection=inj),

@@ -34,6 +34,7 @@ import scipy.stats
 from estimator.analysis import AnalysisResult, AnalysisSettings, run_analysis
 from estimator.conditioning import condition
 from estimator.data import NoiseSpectrum, StrainSegment
+from estimator.models import model_parts, model_top
 from estimator.quality import (
     BAND_FRACTION_LIMIT,
     FALSE_ALARM,
@@ -45,7 +46,6 @@ from estimator.quality import (
 from estimator.simulate import Injection, analytic_design_psd, design_spectrum, simulate_segment
 from estimator.spectrum import interpolate_psd
 from estimator.summary import build_summary, derive_samples
-from estimator.waveform import isco_frequency, symmetric_mass_ratio
 from service.drill import optimal_snr
 from service.report import render_report
 from tests.service.test_report import parse
@@ -136,11 +136,21 @@ def test_loud_burst_before_coalescence_is_flagged(segment: StrainSegment) -> Non
         4 * RATE / t.size * np.sum(np.abs(tilde) ** 2 / interpolate_psd(SPECTRUM, f[band]))
     )
     glitched = dataclasses.replace(segment, strain=segment.strain + burst * 30.0 / snr)
-    report = assess_quality(run_analysis(glitched, SPECTRUM, _settings()))
+    # Without gating the transient check flags it ...
+    ungated = dataclasses.replace(_settings(), gating=False)
+    report = assess_quality(run_analysis(glitched, SPECTRUM, ungated))
     check = next(c for c in report.checks if c.name == "transient")
     assert not check.passed
     assert check.value > 5.0
     assert "-1.0" in check.explanation  # located at about -1.0 s from coalescence
+    # ... with gating (the default) it is gated out, said so, and the residual is clean.
+    result = run_analysis(glitched, SPECTRUM, _settings())
+    assert result.glitches is not None
+    assert len(result.glitches.gates) == 1
+    checks = {c.name: c for c in assess_quality(result).checks}
+    assert checks["transient"].passed
+    assert "gated" in checks["gating"].explanation
+    assert "-1.0" in checks["gating"].explanation
 
 
 def test_variance_range_matches_normal_approximation() -> None:
@@ -175,13 +185,14 @@ def test_band_edge_share_matches_quadrature(clean: AnalysisResult) -> None:
     cut = dataclasses.replace(clean, data=dataclasses.replace(clean.data, f_high=60.0))
     check = next(c for c in assess_quality(cut).checks if c.name == "band_edge")
     p = clean.fiducial.params
-    f_isco = float(isco_frequency(p["chirp_mass"] * symmetric_mass_ratio(p["mass_ratio"]) ** -0.6))
+    f_isco = float(model_top(clean.model, p["chirp_mass"], p["mass_ratio"]))
 
     def power(f: float) -> float:
-        return float(f ** (-7.0 / 3.0) / analytic_design_psd(np.array([f]))[0])
+        factor = model_parts(clean.model, np.array([f]), p["chirp_mass"], p["mass_ratio"])[0]
+        return float(f ** (-7.0 / 3.0) * factor[0] ** 2 / analytic_design_psd(np.array([f]))[0])
 
-    total = scipy.integrate.quad(power, F_LOW, f_isco)[0]
-    above = scipy.integrate.quad(power, 60.0, f_isco)[0]
+    total = scipy.integrate.quad(power, F_LOW, f_isco, limit=200)[0]
+    above = scipy.integrate.quad(power, 60.0, f_isco, limit=200)[0]
     assert check.value == pytest.approx(above / total, abs=0.01)
     assert not check.passed
     assert check.value > BAND_FRACTION_LIMIT
@@ -264,7 +275,7 @@ def test_failed_check_falls_back_to_the_exact_likelihood(segment: StrainSegment)
     assert not result.check.passed
     assert result.check.reweighted
     assert 0.5 < result.check.reweight_efficiency <= 1.0  # binned and exact differ by ~0.01
-    exact = ExactLikelihood([result.data], settings.trigger_time)
+    exact = ExactLikelihood([result.data], settings.trigger_time, model=result.model)
     head = {k: v[:50] for k, v in result.samples.items()}
     assert np.allclose(exact.log_likelihood(head), result.sample_log_likelihood[:50], atol=1e-6)
     check = next(c for c in assess_quality(result).checks if c.name == "likelihood_check")

@@ -81,7 +81,8 @@ def _check_recovery(
     assert res.chain.effective_sample_size >= 2000
     pick = np.random.default_rng(1).choice(res.samples["chirp_mass"].size, 200, replace=False)
     draws = {k: v[pick] for k, v in res.samples.items()}
-    exact = ExactLikelihood([res.data], settings.trigger_time).log_likelihood(draws)
+    exact = ExactLikelihood([res.data], settings.trigger_time, model=res.model)
+    exact = exact.log_likelihood(draws)
     binned = res.likelihood.log_likelihood(draws)
     assert np.max(np.abs(exact - binned)) < 0.05
     return intervals
@@ -97,7 +98,10 @@ def test_binary_neutron_star_like_injection():
     inj, distance, seg = _inject(
         1.2, 0.8, 20.0, duration=128.0, rate=2048.0, f_low=25.0, w=0.8, seed=102
     )
-    settings = AnalysisSettings(trigger_time=inj.coalescence_time + 0.003, f_low=25.0, seed=5)
+    # The neutron-star spin prior (each aligned spin within +-0.05, common practice).
+    settings = AnalysisSettings(
+        trigger_time=inj.coalescence_time + 0.003, f_low=25.0, seed=5, spin_max=0.05
+    )
     intervals = _check_recovery(inj, distance, seg, settings)
     median, lo, hi = intervals["chirp_mass"]
     assert abs(median / inj.chirp_mass - 1.0) < 1e-3

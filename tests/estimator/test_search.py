@@ -26,7 +26,8 @@ def test_search_finds_the_injection(mc, q, duration, guess):
     """
     tc = START + duration - 2.0
     f_low = 30.0 if mc < 2 else 20.0
-    inj = Injection(mc, q, {30.0: 900.0, 8.0: 380.0, 1.3: 75.0}[mc], tc, 0.5)
+    # TaylorF2, the search's own template family (a merger signal is the analysis' to fit).
+    inj = Injection(mc, q, {30.0: 900.0, 8.0: 380.0, 1.3: 75.0}[mc], tc, 0.5, model="taylorf2")
     seg = simulate_segment(SPECTRUM, duration=duration, sample_rate=2048.0, start_time=START,
                            rng=np.random.default_rng(17), injection=inj, f_start=f_low - 5)
     rng = (0.4, 80.0) if guess is None else (0.9 * guess, 1.1 * guess)
