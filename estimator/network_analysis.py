@@ -235,7 +235,7 @@ def run_network_analysis(
     prior = NetworkPrior(analysis_prior(settings))
     f_ref = reference_frequency(data[loudest], fid.params["chirp_mass"], fid.params["mass_ratio"])
     coords = NetworkCoordinates(sites[loudest], gmst, f_ref)
-    walkers = max(settings.walkers, 64)
+    walkers = max(settings.walkers or 64, 64)
     run = sample_network_posterior(
         data,
         sites,

@@ -225,7 +225,7 @@ def sample_posterior(
                 partial(_sampler_log_likelihood, binned, coords),
                 coords,
                 fisher,
-                settings.walkers,
+                settings.walkers or (64 if prior.spinning else 32),
                 {
                     "chirp_mass": 0.1 * center["chirp_mass"],
                     "symmetric_mass_ratio": 0.1,

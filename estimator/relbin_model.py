@@ -10,10 +10,18 @@ edges and replaced by a straight line within each bin, for the overlap
 arXiv:1806.08792, Eqs. 7-12; summary data ``A`` from ``d h_0^* / S``,
 ``B`` from ``|h_0|^2 / S``).
 
-Bins cover the band up to where the fiducial's amplitude falls below
-``1e-8`` of its peak (the model's own top, :func:`estimator.models.model_top`,
-plus a margin); what a sample has above that is left out, a relative change of
-``<h|h>`` well below the tolerance of the exact-likelihood check that follows.
+The reference ``h_0`` need not be a waveform, only smooth and non-zero wherever
+a sample has power. Its phase is the fiducial's; its amplitude is the
+quadrature sum of the fiducial's and that of the same masses with both spins at
+``+0.99``, whose merger and ringdown reach the highest frequencies. With the
+fiducial's amplitude alone, a sample with larger aligned spins than the
+(non-spinning) fiducial has power where ``h_0`` has all but none, and the ratio
+``h/h_0`` grows too steeply to be linear within a bin (measured: 8% of the
+posterior samples of a 20 Msun drill off by up to 0.5 in log-likelihood). Bins
+cover the band up to where that reference falls below ``1e-8`` of its peak
+(the model's own top, :func:`estimator.models.model_top`, plus a margin); what
+a sample has above that is left out, a relative change of ``<h|h>`` well below
+the tolerance of the exact-likelihood check that follows.
 """
 
 from __future__ import annotations
@@ -36,6 +44,8 @@ Params = Mapping[str, Array]
 
 #: Amplitude (relative to its largest value) below which the fiducial counts as ended.
 _FLOOR = 1e-8
+#: Aligned spins of the second amplitude in the reference (module docstring).
+_SPIN_UP = 0.99
 
 
 @dataclass
@@ -70,11 +80,13 @@ class ModelRelativeBinning:
         mc0, q0, tc0 = (float(fid[k]) for k in ("chirp_mass", "mass_ratio", "coalescence_time"))
         s1, s2 = float(fid.get("spin1", 0.0)), float(fid.get("spin2", 0.0))
         self._tc0 = tc0
-        top = 1.3 * float(model_top(self.model, mc0, q0, s1, s2))
+        top = 1.3 * float(model_top(self.model, mc0, q0, _SPIN_UP, _SPIN_UP))
         self._bins = []
         for data in self.datasets:
             f = data.frequencies
             factor, psi = model_parts(self.model, f, mc0, q0, s1, s2)
+            spun_up, _ = model_parts(self.model, f, mc0, q0, _SPIN_UP, _SPIN_UP)
+            factor = np.hypot(factor, spun_up)
             alive = factor > _FLOOR * float(np.max(factor))
             n_top = min(int(np.searchsorted(f, top)), int(np.nonzero(alive)[0][-1]))
             idx = bin_edges(f[: n_top + 1], self.n_bins)

@@ -32,7 +32,9 @@ class AnalysisSettings:
     gating: bool = True
     time_window: float = 0.1
     seed: int | None = None
-    walkers: int = 64
+    #: Walkers of the ensemble; None takes 32 with the spins fixed and 64 when they are
+    #: sampled (measured: fewer walkers mix the 6-parameter posterior too slowly).
+    walkers: int | None = None
     max_steps: int = 20_000
     target_effective_samples: float = 2000.0
     n_bins: int = 96

@@ -191,6 +191,40 @@ def run_injection(setup: CalibrationSetup, index: int) -> dict[str, Any]:
 _ONE_THREAD = {"OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
 
 
+def run_in_processes(
+    function: Callable[[Any, int], dict[str, Any]],
+    setup: Any,
+    count: int,
+    *,
+    workers: int | None = None,
+    progress: Callable[[int, int], None] | None = None,
+) -> list[dict[str, Any]]:
+    """``function(setup, i)`` for ``i < count`` in ``workers`` processes, sorted by index.
+
+    Each row must carry its ``index``; the processes keep to one thread each.
+    """
+    workers = max(1, workers or os.cpu_count() or 1)
+    rows: list[dict[str, Any]] = []
+    context = multiprocessing.get_context("spawn")
+    saved = {k: os.environ.get(k) for k in _ONE_THREAD}
+    os.environ.update(_ONE_THREAD)  # inherited by the processes the pool spawns
+    try:
+        with ProcessPoolExecutor(workers, mp_context=context) as pool:
+            futures = [pool.submit(function, setup, i) for i in range(count)]
+            for done, future in enumerate(as_completed(futures), start=1):
+                rows.append(future.result())
+                if progress is not None:
+                    progress(done, count)
+    finally:
+        for key, value in saved.items():
+            if value is None:
+                os.environ.pop(key, None)
+            else:
+                os.environ[key] = value
+    rows.sort(key=lambda r: int(r["index"]))
+    return rows
+
+
 def run_calibration(
     setup: CalibrationSetup,
     out_dir: Path,
@@ -206,24 +240,9 @@ def run_calibration(
 
     clock = time.perf_counter()
     workers = max(1, workers or os.cpu_count() or 1)
-    rows: list[dict[str, Any]] = []
-    context = multiprocessing.get_context("spawn")
-    saved = {k: os.environ.get(k) for k in _ONE_THREAD}
-    os.environ.update(_ONE_THREAD)  # inherited by the processes the pool spawns
-    try:
-        with ProcessPoolExecutor(workers, mp_context=context) as pool:
-            futures = [pool.submit(run_injection, setup, i) for i in range(setup.injections)]
-            for done, future in enumerate(as_completed(futures), start=1):
-                rows.append(future.result())
-                if progress is not None:
-                    progress(done, setup.injections)
-    finally:
-        for key, value in saved.items():
-            if value is None:
-                os.environ.pop(key, None)
-            else:
-                os.environ[key] = value
-    rows.sort(key=lambda r: int(r["index"]))
+    rows = run_in_processes(
+        run_injection, setup, setup.injections, workers=workers, progress=progress
+    )
     wall = time.perf_counter() - clock
     tested = [k for k in TESTED if f"{k}_level" in rows[0]]
     summary = summarize_levels({k: [r[f"{k}_level"] for r in rows] for k in tested})

@@ -39,6 +39,13 @@ def _add_calibrate(sub: Any) -> None:
     cal.add_argument(
         "--snr-threshold", type=float, default=8.0, help="on the observed search SNR (8)"
     )
+    cal.add_argument(
+        "--spin-max",
+        type=float,
+        default=0.99,
+        help="largest aligned-spin magnitude of the prior the injections are drawn from and "
+        "analysed with (0.99; 0 fixes the spins at zero)",
+    )
 
 
 def _add_service(sub: Any, parser_class: type[argparse.ArgumentParser]) -> None:
@@ -102,7 +109,17 @@ def _run_calibrate(args: argparse.Namespace) -> int:
         raise InputError(msg, field="n")
     if args.workers is not None and args.workers < 1:
         raise InputError(f"--workers {args.workers}: give at least 1", field="workers")
-    setup = CalibrationSetup(injections=args.n, seed=args.seed, snr_threshold=args.snr_threshold)
+    if not 0.0 <= args.spin_max < 1.0:
+        raise InputError(
+            f"--spin-max {args.spin_max:g}: give a number in [0, 1) (0 fixes the spins at zero)",
+            field="spin_max",
+        )
+    setup = CalibrationSetup(
+        injections=args.n,
+        seed=args.seed,
+        snr_threshold=args.snr_threshold,
+        spin_max=args.spin_max,
+    )
     bar: Any = None
     if not args.quiet:
         from tqdm import tqdm

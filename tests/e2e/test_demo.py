@@ -53,6 +53,8 @@ def test_demo_runs_end_to_end(tmp_path: Path, capsys: pytest.CaptureFixture[str]
         "mass_ratio",
         "effective_distance",
         "arrival_time",
+        "effective_spin",
+        "spin2",
     }
     # The demo's source (demo_data/README.md) is a heavy system: no neutron star.
     assert summary["probabilities"]["secondary_below_3_msun"] < 0.01
@@ -76,7 +78,12 @@ def test_failure_leaves_no_half_written_folder(tmp_path: Path, monkeypatch) -> N
 
     monkeypatch.setattr(pipeline, "_make_plots", broken)
     out = tmp_path / "result"
-    code = main(["--quiet", "demo", "--out", str(out)])
+    # The demo's files with the spins fixed (four parameters, faster): the writer is under test.
+    demo = Path(__file__).resolve().parents[2] / "demo_data"
+    event = json.loads((demo / "event.json").read_text(encoding="utf-8"))
+    code = main(["--quiet", "analyze", str(demo / "strain.csv"), "--psd", str(demo / "psd.csv"),
+                 "--trigger-time", str(event["trigger_time"]), "--spin-max", "0",
+                 "--out", str(out)])  # fmt: skip
     assert code == 1
     assert not out.exists()
     assert list(tmp_path.iterdir()) == []

@@ -33,7 +33,9 @@ from service import pipeline
 from .serving import ServerHandle, poll_json, running_server, start_server
 
 DEMO = Path(__file__).resolve().parents[2] / "demo_data"
-SETTINGS = {"trigger_time": 2000000012.004, "label": "drill-kestrel", "seed": 7}
+# Spins fixed (four parameters): the served path is under test here; the demo test
+# samples them.
+SETTINGS = {"trigger_time": 2000000012.004, "label": "drill-kestrel", "seed": 7, "spin_max": 0.0}
 FINAL = {"done", "failed", "cancelled"}
 #: Seconds an analysis may take to reach done (the demo takes ~5-15 s on 2 cores).
 DONE_TIMEOUT = 180.0

@@ -127,6 +127,7 @@ def test_same_seed_same_result():
         f_high=400.0,
         target_effective_samples=500,
         max_steps=1200,
+        spin_max=0.0,
     )
     a = run_analysis(seg, SPECTRUM, settings)  # type: ignore[arg-type]
     b = run_analysis(seg, SPECTRUM, settings)  # type: ignore[arg-type]

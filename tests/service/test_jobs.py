@@ -35,7 +35,7 @@ def _queue(store: Store, analysis_id: str, *, strain: bytes | None = None,
         target.write_bytes(strain)
     request = {"strain": "inputs/strain/strain.csv", "psd": None, "asd": False,
                "sample_rate": None, "start_time": None, "label": "",
-               "settings": {"trigger_time": trigger, "seed": 1}}
+               "settings": {"trigger_time": trigger, "seed": 1, "spin_max": 0.0}}
     store.insert_analysis(analysis_id=analysis_id, label=analysis_id, request=request,
                           inputs={}, owner="", idempotency_key=None,
                           share_hash=hash_secret(analysis_id))

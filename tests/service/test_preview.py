@@ -56,7 +56,8 @@ def _fake_preview(sigma: float = 0.5) -> dict[str, Any]:
 def _insert(store: Store, analysis_id: str) -> None:
     request = {"strain": "inputs/strain/strain.csv", "psd": None, "asd": False,
                "sample_rate": None, "start_time": None, "label": "",
-               "settings": {"trigger_time": EVENT["trigger_time"], "seed": 1}}
+               "settings": {"trigger_time": EVENT["trigger_time"], "seed": 1,
+                            "spin_max": 0.0}}
     store.insert_analysis(analysis_id=analysis_id, label=analysis_id, request=request,
                           inputs={}, owner="", idempotency_key=None,
                           share_hash=hash_secret(analysis_id))
@@ -67,7 +68,7 @@ def test_preview_is_served_while_running_and_matches_the_summary(tmp_path: Path)
     with TestClient(create_app(svc)) as client:
         files = {"strain": ("strain.csv", (DEMO / "strain.csv").read_bytes(), "text/csv"),
                  "psd": ("psd.csv", (DEMO / "psd.csv").read_bytes(), "text/csv")}
-        settings = {"trigger_time": EVENT["trigger_time"], "seed": EVENT["seed"]}
+        settings = {"trigger_time": EVENT["trigger_time"], "seed": EVENT["seed"], "spin_max": 0.0}
         answer = client.post("/api/v1/analyses", files=files,
                              data={"settings": json.dumps(settings)}).json()
         status_url, page_url = answer["status_url"], answer["report_url"]

@@ -22,7 +22,8 @@ def _queue(store: Store, analysis_id: str) -> None:
     shutil.copy(DEMO / "strain.csv", store.inputs_dir(analysis_id) / "strain" / "strain.csv")
     request = {"strain": "inputs/strain/strain.csv", "psd": None, "asd": False,
                "sample_rate": None, "start_time": None, "label": "",
-               "settings": {"trigger_time": EVENT["trigger_time"], "seed": 1}}
+               "settings": {"trigger_time": EVENT["trigger_time"], "seed": 1,
+                            "spin_max": 0.0}}
     store.insert_analysis(analysis_id=analysis_id, label=analysis_id, request=request,
                           inputs={}, owner="", idempotency_key=None,
                           share_hash=hash_secret(analysis_id))
