@@ -208,12 +208,13 @@ def test_network_recovery_and_localisation(drill: Drill, result: NetworkResult) 
 
 @pytest.mark.slow
 def test_sky_credible_regions_cover_the_truth() -> None:
-    """40 prior-drawn injections: the 90% sky region holds the truth in 80-98% of them.
+    """20 prior-drawn injections: the 90% sky region holds the truth in at least 15.
 
-    For a calibrated posterior the count X ~ Binomial(40, 0.9); the band [32, 39]
-    is missed with probability P(X <= 31) + P(X = 40) = 0.043 + 0.015 = 0.058 (the
-    false-alarm rate; seeds are fixed, so the outcome is too). Injections are drawn
-    from the analysis prior (distances uniform in volume to 600 Mpc, chirp mass
+    For a calibrated posterior the count X ~ Binomial(20, 0.9); X <= 14 happens with
+    probability 0.011 (the false-alarm rate; seeds are fixed, so the outcome is too).
+    Over-wide regions are the business of the 100-injection run of
+    benchmarks/network.py (P(X = 20) = 0.12 is too likely to flag here). Injections are
+    drawn from the analysis prior (distances uniform in volume to 600 Mpc, chirp mass
     7-13 Msun) and kept when the observed network search SNR is at least 10. A run whose
     walkers settled in a wrong sky mode (a mirror image) would leave its truth outside:
     this is also the check that the scan-seeded sampler finds the right mode.
@@ -221,12 +222,12 @@ def test_sky_credible_regions_cover_the_truth() -> None:
     ctx = mp.get_context("fork")
     levels: list[float] = []
     with ProcessPoolExecutor(2, mp_context=ctx) as pool:
-        for out in pool.map(coverage_run, range(48)):
-            if out is not None and len(levels) < 40:
+        for out in pool.map(coverage_run, range(27)):
+            if out is not None and len(levels) < 20:
                 levels.append(out[0])
-    assert len(levels) == 40
+    assert len(levels) == 20
     inside = int(np.sum(np.array(levels) <= 0.9))
-    assert 32 <= inside <= 39, sorted(levels)
+    assert inside >= 15, sorted(levels)
 
 
 def test_clean_network_passes_its_coincidence_checks(result: NetworkResult) -> None:
