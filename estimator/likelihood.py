@@ -40,6 +40,7 @@ from .waveform import (
 __all__ = [
     "PARAMETER_NAMES",
     "ExactLikelihood",
+    "FromOverlaps",
     "Likelihood",
     "log_i0",
     "newtonian_amplitude",
@@ -93,6 +94,29 @@ def newtonian_amplitude(chirp_mass: Array, effective_distance: Array) -> Array:
     )
 
 
+class FromOverlaps:
+    """``log_likelihood`` and ``matched_filter_snr`` of a class's ``overlaps``.
+
+    ``overlaps(params)`` gives the complex overlaps ``z = <d|h>`` (phase
+    ``phi_c = 0``) and ``<h|h>``, each ``(n_det, n)``. Marginalising the coalescence
+    phase analytically over a uniform prior turns ``Re(z e^{i phi})`` into
+    ``ln I0(|z|)`` (common practice).
+    """
+
+    def overlaps(self, params: Params) -> tuple[NDArray[np.complex128], Array]:
+        raise NotImplementedError
+
+    def log_likelihood(self, params: Params) -> Array:
+        """Phase-marginalised log-likelihood ratio ``ln I0(|z|) - <h|h>/2``, shape ``(n,)``."""
+        z, hh = self.overlaps(params)
+        return np.asarray(np.sum(log_i0(np.abs(z)) - 0.5 * hh, axis=0), dtype=float)
+
+    def matched_filter_snr(self, params: Params) -> Array:
+        """Network matched-filter SNR ``sqrt(sum |z|^2 / <h|h>)``, shape ``(n,)``."""
+        z, hh = self.overlaps(params)
+        return np.asarray(np.sqrt(np.sum(np.abs(z) ** 2 / np.maximum(hh, 1e-300), axis=0)))
+
+
 @dataclass
 class _Prepared:
     """Per-detector quantities that do not change between likelihood calls."""
@@ -108,7 +132,7 @@ class _Prepared:
 
 
 @dataclass
-class ExactLikelihood:
+class ExactLikelihood(FromOverlaps):
     """The phase-marginalised Whittle likelihood, evaluated on every frequency bin.
 
     Parameters
@@ -260,13 +284,3 @@ class ExactLikelihood:
                 z[i, sl] = amp[sl] * ((factor * np.exp(1j * psi)) @ weighted)
                 hh[i, sl] = amp[sl] ** 2 * (factor**2 @ norm)
         return z, hh
-
-    def log_likelihood(self, params: Params) -> Array:
-        """Phase-marginalised log-likelihood ratio ``ln I0(|z|) - <h|h>/2``, shape ``(n,)``."""
-        z, hh = self.overlaps(params)
-        return np.asarray(np.sum(log_i0(np.abs(z)) - 0.5 * hh, axis=0), dtype=float)
-
-    def matched_filter_snr(self, params: Params) -> Array:
-        """Network matched-filter SNR ``sqrt(sum |z|^2 / <h|h>)``, shape ``(n,)``."""
-        z, hh = self.overlaps(params)
-        return np.asarray(np.sqrt(np.sum(np.abs(z) ** 2 / np.maximum(hh, 1e-300), axis=0)))

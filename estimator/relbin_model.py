@@ -33,7 +33,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .conditioning import DetectorData
-from .likelihood import PARAMETER_NAMES, log_i0, newtonian_amplitude, spin_arrays
+from .likelihood import PARAMETER_NAMES, FromOverlaps, newtonian_amplitude, spin_arrays
 from .models import model_parts, model_top
 from .relbin import RelativeBinningLikelihood, bin_edges
 
@@ -61,7 +61,7 @@ class _Bins:
 
 
 @dataclass
-class ModelRelativeBinning:
+class ModelRelativeBinning(FromOverlaps):
     """Phase-marginalised likelihood of ``model`` via relative binning (module docstring).
 
     The interface is that of :class:`estimator.relbin.RelativeBinningLikelihood`.
@@ -150,16 +150,6 @@ class ModelRelativeBinning:
             p = scale**2
             hh[i] = 0.5 * (p[:, :-1] + p[:, 1:]) @ b.b0 + ((p[:, 1:] - p[:, :-1]) / b.widths) @ b.b1
         return z, hh
-
-    def log_likelihood(self, params: Params) -> Array:
-        """Phase-marginalised log-likelihood ratio ``ln I0(|z|) - <h|h>/2``, shape ``(n,)``."""
-        z, hh = self.overlaps(params)
-        return np.asarray(np.sum(log_i0(np.abs(z)) - 0.5 * hh, axis=0), dtype=float)
-
-    def matched_filter_snr(self, params: Params) -> Array:
-        """Matched-filter SNR ``sqrt(sum |z|^2 / <h|h>)``, shape ``(n,)``."""
-        z, hh = self.overlaps(params)
-        return np.asarray(np.sqrt(np.sum(np.abs(z) ** 2 / np.maximum(hh, 1e-300), axis=0)))
 
 
 def binned_likelihood(
