@@ -79,11 +79,14 @@ def page(browser: Any) -> Iterator[Any]:
     assert errors == [], f"JavaScript errors on the page: {errors}"
 
 
-def _fill(page: Any, strain: Path, *, psd: Path | None = None, label: str = "") -> None:
+def _fill(page: Any, strain: Path, *, psd: Path | None = None, label: str = "",
+          spin_max: str | None = None) -> None:
     page.set_input_files("#strain", str(strain))
     if psd is not None:
         page.set_input_files("#psd", str(psd))
     page.fill("#trigger_time", TRIGGER)
+    if spin_max is not None:
+        page.fill("#spin_max", spin_max)
     page.fill("#label", label)
     page.click("#submit")
 
@@ -123,7 +126,9 @@ def test_upload_progress_report_and_a_wrong_file(page: Any, tmp_path: Path) -> N
         page.goto(server.base_url + "/")
         assert CAUTION in page.inner_text("body")
         page.screenshot(path=str(tmp_path / "upload.png"), full_page=True)
-        _fill(page, DEMO / "strain.csv", psd=DEMO / "psd.csv", label="browser check")
+        # Spins fixed through the form's own field (four parameters: the page is under test).
+        _fill(page, DEMO / "strain.csv", psd=DEMO / "psd.csv", label="browser check",
+              spin_max="0")
         page.wait_for_url("**/r/**", timeout=30_000)
         assert CAUTION in page.inner_text("body")
         seen = _progress_until_report(page, timeout=180.0, shot=tmp_path / "status.png")
@@ -137,6 +142,7 @@ def test_upload_progress_report_and_a_wrong_file(page: Any, tmp_path: Path) -> N
         text = page.inner_text("body")
         assert "chirp mass" in text.lower()
         assert CAUTION in text
+        assert "spins fixed at zero" in text  # the form's spin bound reached the analysis
         assert page.locator("#copy-share").is_visible()
         corner = page.locator("#plot-corner img")
         corner.scroll_into_view_if_needed()
@@ -332,7 +338,8 @@ def test_status_page_follows_events_and_reloads_into_the_report(
     assert 0.3 in seen or 0.6 in seen, seen  # the bar moved with the events
     assert page.inner_text("h1") == "stub"
     assert app.state.submitted[-1] == {"trigger_time": 2000000012.004, "f_low": 20,
-                                       "label": "fine", "asd": False}
+                                       "label": "fine", "asd": False, "spin_max": 0.99,
+                                       "model": "auto", "gating": True}
 
 
 def test_status_page_shows_a_failure_with_a_way_back(page: Any, stub: tuple[str, Any],
