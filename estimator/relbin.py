@@ -27,7 +27,7 @@ from numpy.typing import NDArray
 from scipy.special import i0e
 
 from .conditioning import DetectorData
-from .likelihood import PARAMETER_NAMES, log_i0, newtonian_amplitude, spin_arrays
+from .likelihood import PARAMETER_NAMES, FromOverlaps, newtonian_amplitude, spin_arrays
 from .waveform import (
     MPC_SECONDS,
     MSUN_SECONDS,
@@ -201,7 +201,7 @@ def _overlap_parts(b: _Binned, terms: MassTerms, tc: Array) -> tuple[Array, Arra
 
 
 @dataclass
-class RelativeBinningLikelihood:
+class RelativeBinningLikelihood(FromOverlaps):
     """Phase-marginalised likelihood via relative binning around ``fiducial``.
 
     Parameters
@@ -375,10 +375,4 @@ class RelativeBinningLikelihood:
         return [_overlap_parts(b, terms, t) for b, t in zip(self._bins, times, strict=True)]
 
     def _general(self, params: Params) -> Array:
-        z, hh = self.overlaps(params)
-        return np.asarray(np.sum(log_i0(np.abs(z)) - 0.5 * hh, axis=0), dtype=float)
-
-    def matched_filter_snr(self, params: Params) -> Array:
-        """Matched-filter SNR ``sqrt(sum |z|^2 / <h|h>)``, shape ``(n,)``."""
-        z, hh = self.overlaps(params)
-        return np.asarray(np.sqrt(np.sum(np.abs(z) ** 2 / np.maximum(hh, 1e-300), axis=0)))
+        return FromOverlaps.log_likelihood(self, params)
