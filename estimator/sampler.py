@@ -168,6 +168,18 @@ def _autocorr_time(
     return out
 
 
+def _monotone(report: Callable[[float], None]) -> Callable[[float], None]:
+    """``report`` called only with fractions at least as large as every earlier one."""
+    shown = 0.0
+
+    def call(fraction: float) -> None:
+        nonlocal shown
+        shown = max(shown, float(fraction))
+        report(shown)
+
+    return call
+
+
 def run_ensemble(
     log_prob: Callable[[Mapping[str, Array]], Array],
     start: Array,
@@ -200,7 +212,9 @@ def run_ensemble(
     seed
         Seeds the sampler's generator (the same seed gives the same chain).
     progress
-        Called with the fraction of the expected work done.
+        Called with the fraction of the expected work done. The fraction never
+        decreases, even when a check finds the chain needs more steps than the last
+        one expected (a progress bar that runs backwards reads as a fault).
     moves
         emcee moves with their weights (default: differential evolution alone).
     periods
@@ -224,6 +238,8 @@ def run_ensemble(
     """
     names = tuple(names)
     walkers, ndim = start.shape
+    if progress is not None:
+        progress = _monotone(progress)
 
     def vector_log_prob(x: Array) -> Array:
         return log_prob({name: x[:, i] for i, name in enumerate(names)})

@@ -113,6 +113,7 @@ class _Reporter:
         self._done = threading.Event()
         self._stage = ""
         self._last = 0.0
+        self._shown = 0.0  # the stored fraction never decreases
         self._thread = threading.Thread(target=self._beat, daemon=True)
 
     def __enter__(self) -> _Reporter:
@@ -139,7 +140,8 @@ class _Reporter:
         now = time.monotonic()
         if stage != self._stage or now - self._last >= PROGRESS_INTERVAL:
             self._stage, self._last = stage, now
-            if not jobs.heartbeat(self.store, self.job, stage=stage, progress=min(total, 0.99)):
+            self._shown = max(self._shown, min(total, 0.99))
+            if not jobs.heartbeat(self.store, self.job, stage=stage, progress=self._shown):
                 self.lost.set()
                 raise _Stop
 
