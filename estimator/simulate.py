@@ -22,6 +22,7 @@ from .spectrum import interpolate_psd
 from .waveform import time_to_coalescence
 
 __all__ = [
+    "TIME_DOMAIN",
     "Injection",
     "NetworkInjection",
     "analytic_design_psd",
@@ -58,6 +59,10 @@ def design_spectrum(f_min: float = 10.0, f_max: float = 4096.0, n: int = 2000) -
     )
 
 
+#: Injected waveforms of :mod:`estimator.timedomain`, with where their inspiral ends.
+TIME_DOMAIN = {"timedomain": "extremum", "timedomain-isco": "isco"}
+
+
 @dataclass(frozen=True)
 class Injection:
     """True parameters of a simulated signal (detector-frame masses).
@@ -73,7 +78,9 @@ class Injection:
     spin1: float = 0.0
     spin2: float = 0.0
     #: Waveform injected: a model of :mod:`estimator.models` (``merger``, ``taylorf2``),
-    #: or ``timedomain`` (:mod:`estimator.timedomain`, an independent waveform).
+    #: or ``timedomain`` (:mod:`estimator.timedomain`, an independent waveform whose
+    #: inspiral ends at the PN energy extremum) or ``timedomain-isco`` (the same,
+    #: ended at the Schwarzschild ISCO).
     #: The merger model equals TaylorF2 up to the ISCO and continues smoothly beyond.
     model: str = "merger"
 
@@ -100,7 +107,7 @@ def injection_strain(
         > available
     ):
         f_start *= 1.05
-    if injection.model == "timedomain":
+    if injection.model in TIME_DOMAIN:
         return _timedomain_strain(injection, n_samples, sample_rate, start_time, f_start)
     h = np.zeros(f.size, dtype=complex)
     on = f >= f_start
@@ -140,6 +147,7 @@ def _timedomain_strain(
         merger_time=injection.coalescence_time,
         phase=injection.phase,
         f_start=f_start,
+        end=TIME_DOMAIN[injection.model],
     )
     return np.asarray(scipy.fft.rfft(strain) / sample_rate, dtype=complex)
 

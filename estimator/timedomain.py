@@ -13,6 +13,21 @@ model can be tested against this one. The strain is the restricted quadrupole
 2658, Eq. 3.4). A damped ringdown of the remnant's ``l = m = 2`` mode
 (:func:`estimator.remnant.ringdown`) is joined at the end of the inspiral.
 
+Where the inspiral ends (``end``): by default at the minimum of the PN binding
+energy, ``dE/dv = 0`` -- the innermost circular orbit of the PN energy function
+(Blanchet 2002, PRD 65, 124009) and the point where TaylorT1's ``dv/dt`` has no
+finite value -- but no later than the Schwarzschild light ring ``v = 3^{-1/2}``
+(where the plunge of a test mass ends and Buonanno & Damour 2000, PRD 62,
+064015, attach the ringdown). For equal masses without spins that is
+``M omega = 0.129`` (orbital), a gravitational-wave frequency ``1.9`` times the
+Schwarzschild ISCO's, close to the merger frequency of the phenomenological
+amplitude fit of Ajith et al. 2008 (PRD 77, 104017, Table I: ``1.84`` times)
+where real signals still grow. ``end="isco"`` stops at the Schwarzschild ISCO
+``v = 6^{-1/2}`` instead (or at the extremum if it comes first): the amplitude
+then decays from well below the frequency where numerical-relativity waveforms
+peak, so the injection has too little power above the ISCO (kept to measure
+how much the robustness study depends on this choice).
+
 Conventions: G = c = 1, ``M`` the total mass in seconds; ``E`` per unit ``M``;
 ``X_i = m_i / M``, ``delta = X1 - X2``, ``S = X1^2 chi1 + X2^2 chi2`` and
 ``Sigma = X2 chi2 - X1 chi1`` (the spin variables ``S_l / M^2`` and
@@ -49,6 +64,10 @@ Array = NDArray[np.float64]
 
 #: ``v`` at the Schwarzschild innermost stable circular orbit, ``6^{-1/2}`` (common practice).
 V_ISCO = 6.0**-0.5
+#: ``v`` at the Schwarzschild light ring (photon orbit, ``r = 3M``), ``3^{-1/2}`` (common practice).
+V_LIGHT_RING = 3.0**-0.5
+#: Where the integrated inspiral may end (module docstring).
+ENDS = {"extremum": V_LIGHT_RING, "isco": V_ISCO}
 #: Width of the frequency blend into the ringdown, in units of ``M`` (our choice).
 BLEND_WIDTH = 5.0
 LOG2 = math.log(2.0)
@@ -172,9 +191,9 @@ def energy_flux(v: ArrayLike, mass_ratio: float, spin1: float = 0.0,
 class InspiralOrbit:
     """A TaylorT1 orbit from ``v_start`` (time 0) to ``v_end`` (time ``duration``, s).
 
-    ``end_reason`` is ``"isco"`` (``v`` reached ``6^{-1/2}``) or ``"energy extremum"``
-    (``dE/dv`` reached 0 first). ``total_mass`` in s; ``solution`` is the dense
-    output of ``(v, Phi)``.
+    ``end_reason`` is ``"isco"`` or ``"light ring"`` (``v`` reached the cap of
+    ``end``) or ``"energy extremum"`` (``dE/dv`` reached 0 first). ``total_mass``
+    in s; ``solution`` is the dense output of ``(v, Phi)``.
     """
 
     total_mass: float
@@ -203,9 +222,14 @@ def _check(chirp_mass: float, mass_ratio: float, spin1: float, spin2: float) -> 
             raise InputError(f"{name} {chi} must lie in (-1, 1)", field=name)
 
 
-def _end_velocity(de: Array, f: Array, g: Array, v0: float) -> tuple[float, str]:
-    """First ``v > v0`` where ``dE/dv = 0``, else ``6^{-1/2}``; raises if ``F <= 0`` first."""
-    grid = np.linspace(v0, V_ISCO, 2001)
+def _end_velocity(
+    de: Array, f: Array, g: Array, v0: float, end: str = "extremum"
+) -> tuple[float, str]:
+    """First ``v > v0`` where ``dE/dv = 0``, else the cap of ``end``; raises if ``F <= 0`` first."""
+    if end not in ENDS:
+        raise InputError(f"end {end!r}: choose one of {sorted(ENDS)}", field="end")
+    cap = ENDS[end]
+    grid = np.linspace(v0, cap, 2001)
     slope = _poly(de, grid)
     flux = _poly(f, grid) + np.log(grid) * _poly(g, grid)
     if flux[0] <= 0.0 or slope[0] <= 0.0:
@@ -213,7 +237,7 @@ def _end_velocity(de: Array, f: Array, g: Array, v0: float) -> tuple[float, str]
         raise InputError(msg, field="f_start")
     bad = np.nonzero((slope <= 0.0) | (flux <= 0.0))[0]
     if bad.size == 0:
-        return V_ISCO, "isco"
+        return cap, "isco" if end == "isco" else "light ring"
     i = int(bad[0])
     if flux[i] <= 0.0:
         msg = f"PN flux turns negative at v = {grid[i]:.3f} before dE/dv = 0 or the ISCO"
@@ -225,16 +249,19 @@ def _end_velocity(de: Array, f: Array, g: Array, v0: float) -> tuple[float, str]
 
 
 def inspiral_orbit(*, chirp_mass: float, mass_ratio: float, spin1: float = 0.0,
-                   spin2: float = 0.0, f_start: float) -> InspiralOrbit:  # fmt: skip
+                   spin2: float = 0.0, f_start: float,
+                   end: str = "extremum") -> InspiralOrbit:  # fmt: skip
     """Integrate the TaylorT1 orbit from the gravitational-wave frequency ``f_start`` (Hz).
 
     ``dv/dt = -F(v) / (M dE/dv)``, ``dPhi/dt = v^3 / M`` ("TaylorT1", from memory
     of Damour, Iyer & Sathyaprakash 2001, PRD 63, 044023, Sec. III) with
     ``scipy.integrate.solve_ivp`` (DOP853, rtol 1e-11), up to the first of
     ``dE/dv = 0`` (the energy extremum: beyond it ``dv/dt`` has no finite value)
-    and the Schwarzschild ISCO ``v = 6^{-1/2}`` (where the adiabatic inspiral of
-    a test mass ends; common practice, as for TaylorF2's cut-off). Without spins
-    the ISCO comes first; strongly anti-aligned spins reach ``dE/dv = 0`` first.
+    and the cap of ``end`` (module docstring): the light ring ``v = 3^{-1/2}``
+    (``"extremum"``, the default; without spins the extremum comes first, aligned
+    spins of about 0.5 reach the cap) or the Schwarzschild ISCO ``v = 6^{-1/2}``
+    (``"isco"``, where the adiabatic inspiral of a test mass ends; without spins
+    the ISCO comes first, strongly anti-aligned spins reach ``dE/dv = 0`` first).
     """
     _check(chirp_mass, mass_ratio, spin1, spin2)
     eta = float(symmetric_mass_ratio(mass_ratio))
@@ -243,7 +270,7 @@ def inspiral_orbit(*, chirp_mass: float, mass_ratio: float, spin1: float = 0.0,
     if not v0 > 0.0:
         raise InputError(f"f_start {f_start} Hz must be positive", field="f_start")
     de, f, g = _series(mass_ratio, spin1, spin2)
-    v_end, reason = _end_velocity(de, f, g, v0)
+    v_end, reason = _end_velocity(de, f, g, v0, end)
     rate = 6.4 * eta / total
 
     def rhs(_: float, y: Array) -> list[float]:
@@ -265,18 +292,18 @@ def inspiral_orbit(*, chirp_mass: float, mass_ratio: float, spin1: float = 0.0,
 
 
 def inspiral_end_frequency(*, chirp_mass: float, mass_ratio: float, spin1: float = 0.0,
-                           spin2: float = 0.0) -> float:  # fmt: skip
+                           spin2: float = 0.0, end: str = "extremum") -> float:  # fmt: skip
     """Gravitational-wave frequency (Hz) where :func:`inspiral_orbit` ends, ``v_end^3 / (pi M)``."""
     _check(chirp_mass, mass_ratio, spin1, spin2)
     eta = float(symmetric_mass_ratio(mass_ratio))
     total = chirp_mass * eta**-0.6 * MSUN_SECONDS
-    v_end, _ = _end_velocity(*_series(mass_ratio, spin1, spin2), 1e-3)
+    v_end, _ = _end_velocity(*_series(mass_ratio, spin1, spin2), 1e-3, end)
     return float(v_end**3 / (np.pi * total))
 
 
 def td_strain(times: ArrayLike, *, chirp_mass: float, mass_ratio: float, spin1: float = 0.0,
               spin2: float = 0.0, effective_distance: float, merger_time: float,
-              phase: float = 0.0, f_start: float) -> Array:  # fmt: skip
+              phase: float = 0.0, f_start: float, end: str = "extremum") -> Array:  # fmt: skip
     """Time-domain strain of the TaylorT1 inspiral plus ringdown, one detector.
 
     Parameters
@@ -298,6 +325,8 @@ def td_strain(times: ArrayLike, *, chirp_mass: float, mass_ratio: float, spin1: 
     f_start
         Gravitational-wave frequency at which the signal starts, Hz; it is zero
         before and rises by a cosine roll-on over the first ``TAPER_CYCLES`` cycles.
+    end
+        Where the inspiral ends: ``"extremum"`` (default) or ``"isco"`` (module docstring).
 
     Notes
     -----
@@ -313,7 +342,7 @@ def td_strain(times: ArrayLike, *, chirp_mass: float, mass_ratio: float, spin1: 
         msg = f"effective_distance {effective_distance} Mpc must be positive"
         raise InputError(msg, field="effective_distance")
     orbit = inspiral_orbit(chirp_mass=chirp_mass, mass_ratio=mass_ratio, spin1=spin1,
-                           spin2=spin2, f_start=f_start)  # fmt: skip
+                           spin2=spin2, f_start=f_start, end=end)  # fmt: skip
     t = np.asarray(times, dtype=float) - merger_time
     out = np.zeros(t.shape)
     m = orbit.total_mass

@@ -144,10 +144,11 @@ def add_simulate_parser(sub: Any) -> None:
     sim.add_argument("--spin2", type=float, default=0.0, help="aligned spin of the lighter body")
     sim.add_argument(
         "--waveform",
-        choices=("merger", "taylorf2", "timedomain"),
+        choices=("merger", "taylorf2", "timedomain", "timedomain-isco"),
         default="merger",
-        help="injected waveform: merger (default), taylorf2 (ends at the ISCO), or timedomain "
-        "(an independent waveform integrated from the PN energy and flux, plus a ringdown)",
+        help="injected waveform: merger (default), taylorf2 (ends at the ISCO), timedomain "
+        "(an independent waveform integrated from the PN energy and flux to its extremum, "
+        "plus a ringdown) or timedomain-isco (the same, ended at the ISCO)",
     )
     from .network_drill import add_network_drill_options
 

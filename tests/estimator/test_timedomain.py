@@ -219,14 +219,22 @@ def test_stationary_phase_of_energy_and_flux_gives_taylorf2(
 
 
 @pytest.mark.parametrize(
-    ("spin1", "spin2", "reason"), [(0.3, -0.2, "isco"), (-0.9, -0.9, "energy extremum")]
+    ("spin1", "spin2", "end", "reason"),
+    [
+        (0.3, -0.2, "isco", "isco"),
+        (0.3, -0.2, "extremum", "energy extremum"),
+        (0.9, 0.9, "extremum", "light ring"),
+        (-0.9, -0.9, "isco", "energy extremum"),
+    ],
 )
-def test_energy_balance_along_the_orbit(spin1: float, spin2: float, reason: str) -> None:
+def test_energy_balance_along_the_orbit(spin1: float, spin2: float, end: str, reason: str) -> None:
     # dE/dt = -F (the balance equation that defines TaylorT1; Damour, Iyer &
     # Sathyaprakash 2001, Sec. III), checked with a 5-point derivative of E(v(t))
     # along the integrated orbit. Measured worst relative error 5e-9.
     mc, q = chirp_mass_and_ratio(10.0, 5.0)
-    orbit = inspiral_orbit(chirp_mass=mc, mass_ratio=q, spin1=spin1, spin2=spin2, f_start=20.0)
+    orbit = inspiral_orbit(
+        chirp_mass=mc, mass_ratio=q, spin1=spin1, spin2=spin2, f_start=20.0, end=end
+    )
     assert orbit.end_reason == reason
     for frac in (0.01, 0.3, 0.9, 0.999, 0.99999):
         t = frac * orbit.duration
@@ -240,24 +248,58 @@ def test_energy_balance_along_the_orbit(spin1: float, spin2: float, reason: str)
         assert de_dt == pytest.approx(-flux, rel=1e-6), frac
 
 
+def _energy_slope(v: float, q: float, spin: float) -> float:
+    """``|dE/dv|`` by a central difference, in units of its Newtonian value ``eta v``."""
+    step = 1e-7
+    diff = binding_energy(v + step, q, spin, spin) - binding_energy(v - step, q, spin, spin)
+    eta = q / (1.0 + q) ** 2
+    return abs(float(diff) / (2 * step)) / (eta * v)
+
+
 def test_inspiral_ends_at_isco_or_energy_extremum() -> None:
-    # No spin: the PN energy has no extremum below v = 6^{-1/2}, so the end is the
-    # Schwarzschild ISCO, f = 1/(6^{3/2} pi M) (common practice). Strongly
+    # end="isco". No spin: the PN energy has no extremum below v = 6^{-1/2}, so the
+    # end is the Schwarzschild ISCO, f = 1/(6^{3/2} pi M) (common practice). Strongly
     # anti-aligned spins: dE/dv = 0 is reached first (the 1.5PN spin-orbit term
     # 14/3 S v^3 of E, Kidder 1995, is then negative and pulls the turning point in).
     mc, q = chirp_mass_and_ratio(10.0, 10.0)
     total = 20.0 * MSUN_SECONDS
     f_isco = 1.0 / (6.0**1.5 * np.pi * total)
-    assert inspiral_end_frequency(chirp_mass=mc, mass_ratio=q) == pytest.approx(f_isco, rel=1e-12)
-    f_end = inspiral_end_frequency(chirp_mass=mc, mass_ratio=q, spin1=-0.9, spin2=-0.9)
+    f_end = inspiral_end_frequency(chirp_mass=mc, mass_ratio=q, end="isco")
+    assert f_end == pytest.approx(f_isco, rel=1e-12)
+    f_end = inspiral_end_frequency(chirp_mass=mc, mass_ratio=q, spin1=-0.9, spin2=-0.9, end="isco")
     assert f_end < f_isco
     v_end = (np.pi * total * f_end) ** (1.0 / 3.0)
-    step = 1e-7
-    slope = float(
-        binding_energy(v_end + step, q, -0.9, -0.9) - binding_energy(v_end - step, q, -0.9, -0.9)
-    ) / (2 * step)
-    newtonian = 0.25 * v_end  # |dE/dv| of -eta v^2 / 2
-    assert abs(slope) < 1e-4 * newtonian
+    assert _energy_slope(v_end, q, -0.9) < 2e-4
+
+
+def test_default_end_is_the_energy_extremum_capped_at_the_light_ring() -> None:
+    # Default end: the minimum of the PN energy (the innermost circular orbit of the
+    # energy function, Blanchet 2002, PRD 65, 124009), no later than the light ring
+    # v = 3^{-1/2} (common practice). Equal masses without spin: measured here
+    # M omega = 0.1288 (orbital), i.e. a gravitational-wave frequency of 0.1288/(pi M),
+    # 1.89 times the ISCO's and within 5% of the phenomenological merger frequency
+    # of Ajith et al. 2008 (PRD 77, 104017, Table I, from memory:
+    # (0.29740 eta^2 + 0.044810 eta + 0.095560) / (pi M) = 0.1254 / (pi M) at eta = 1/4).
+    mc, q = chirp_mass_and_ratio(10.0, 10.0)
+    total = 20.0 * MSUN_SECONDS
+    f_end = inspiral_end_frequency(chirp_mass=mc, mass_ratio=q)
+    v_end = (np.pi * total * f_end) ** (1.0 / 3.0)
+    assert _energy_slope(v_end, q, 0.0) < 2e-4
+    f_isco = 1.0 / (6.0**1.5 * np.pi * total)
+    assert 1.8 < f_end / f_isco < 2.0
+    eta = 0.25
+    f_merge = (0.29740 * eta**2 + 0.044810 * eta + 0.095560) / (np.pi * total)
+    assert f_end == pytest.approx(f_merge, rel=0.05)
+    # Spins of 0.5 along the orbit push the extremum beyond the light ring: the cap.
+    f_end = inspiral_end_frequency(chirp_mass=mc, mass_ratio=q, spin1=0.5, spin2=0.5)
+    assert f_end == pytest.approx(3.0**-1.5 / (np.pi * total), rel=1e-12)
+    orbit = inspiral_orbit(chirp_mass=mc, mass_ratio=q, spin1=0.5, spin2=0.5, f_start=30.0)
+    assert orbit.end_reason == "light ring"
+    assert inspiral_orbit(chirp_mass=mc, mass_ratio=q, f_start=30.0).end_reason == (
+        "energy extremum"
+    )
+    with pytest.raises(InputError, match="end"):
+        inspiral_end_frequency(chirp_mass=mc, mass_ratio=q, end="somewhere")
 
 
 def test_ringdown_is_the_remnant_quasinormal_mode() -> None:
