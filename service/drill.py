@@ -16,7 +16,13 @@ import numpy as np
 from estimator.data import NoiseSpectrum, StrainSegment
 from estimator.errors import InputError
 from estimator.io import read_psd
-from estimator.simulate import Injection, design_spectrum, injection_strain, simulate_segment
+from estimator.simulate import (
+    TIME_DOMAIN,
+    Injection,
+    design_spectrum,
+    injection_strain,
+    simulate_segment,
+)
 from estimator.spectrum import interpolate_psd
 
 __all__ = [
@@ -144,7 +150,7 @@ def add_simulate_parser(sub: Any) -> None:
     sim.add_argument("--spin2", type=float, default=0.0, help="aligned spin of the lighter body")
     sim.add_argument(
         "--waveform",
-        choices=("merger", "taylorf2", "timedomain", "timedomain-isco"),
+        choices=("merger", "taylorf2", *TIME_DOMAIN),
         default="merger",
         help="injected waveform: merger (default), taylorf2 (ends at the ISCO), timedomain "
         "(an independent waveform integrated from the PN energy and flux to its extremum, "
