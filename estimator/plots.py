@@ -39,6 +39,7 @@ from estimator.timefreq_plot import normalised_energy_map, time_frequency_plot
 
 __all__ = [
     "DPI",
+    "MAX_TRACE_WALKERS",
     "PALETTE",
     "corner_plot",
     "normalised_energy_map",
@@ -49,6 +50,9 @@ __all__ = [
 ]
 
 Array = NDArray[np.float64]
+
+#: The trace plot draws at most this many walkers' lines (its median uses every walker).
+MAX_TRACE_WALKERS = 32
 
 
 def corner_plot(
@@ -226,14 +230,19 @@ def trace_plot(
     if not 0 <= burn_in <= n_steps:
         msg = f"burn_in={burn_in} is outside 0..{n_steps}; it counts steps of the chain"
         raise InputError(msg, source="trace_plot", field="burn_in")
-    stride = max(1, n_steps // 500)
+    # At most ~300 points per line and 32 drawn walkers (evenly picked; the median
+    # line uses all of them): more lines add ink and drawing time, not information.
+    stride = max(1, n_steps // 300)
     steps = np.arange(0, n_steps, stride)
+    shown = np.unique(np.linspace(0, n_walkers - 1, min(n_walkers, MAX_TRACE_WALKERS)).round())
+    shown = shown.astype(np.intp)
     height = 1.35 * n_dim + 0.6
     fig = new_figure(7.2, height)
     axes = fig.subplots(n_dim, 1, sharex=True, squeeze=False)[:, 0]
     for i, (ax, name) in enumerate(zip(axes, names, strict=True)):
         y = c[::stride, :, i]
-        lines = np.stack([np.broadcast_to(steps[:, None], y.shape), y], axis=-1)
+        drawn = y[:, shown]
+        lines = np.stack([np.broadcast_to(steps[:, None], drawn.shape), drawn], axis=-1)
         ax.add_collection(LineCollection(list(lines.transpose(1, 0, 2)),
                                          colors=PALETTE["model"], linewidths=0.5, alpha=0.25))
         ax.plot(steps, np.median(y, axis=1), color=PALETTE["ink"], linewidth=0.9)
@@ -251,7 +260,9 @@ def trace_plot(
                          xycoords=("data", "axes fraction"), xytext=(4, -9),
                          textcoords="offset points", ha="left", fontsize=7,
                          color=PALETTE["accent"])
-    axes[-1].set_xlabel(f"step ({n_walkers} walkers; dark line: median across walkers)")
+    drawn_text = (f"{n_walkers} walkers" if shown.size == n_walkers
+                  else f"{shown.size} of {n_walkers} walkers drawn")
+    axes[-1].set_xlabel(f"step ({drawn_text}; dark line: median across all walkers)")
     fig.align_ylabels(axes)
     fig.subplots_adjust(left=0.12, right=0.985, bottom=0.45 / height, top=1 - 0.15 / height,
                         hspace=0.12)

@@ -360,6 +360,25 @@ class RelativeBinningLikelihood(FromOverlaps):
             total += absz + np.log(i0e(absz)) - 0.5 * amp**2 * norm
         return total
 
+    def matched_filter_snr(self, params: Params) -> Array:
+        """Matched-filter SNR ``sqrt(sum |z|^2 / <h|h>)``, shape ``(n,)``.
+
+        The amplitude cancels, so the unit-amplitude overlaps of ``log_likelihood``'s
+        fast path suffice (the same numbers as :meth:`FromOverlaps.matched_filter_snr`,
+        at a fraction of the cost on the tens of thousands of posterior samples).
+        """
+        mc = np.asarray(params["chirp_mass"], dtype=float)
+        if mc.ndim != 1:
+            return FromOverlaps.matched_filter_snr(self, params)
+        q = np.asarray(params["mass_ratio"], dtype=float)
+        tc = np.asarray(params["coalescence_time"], dtype=float)
+        terms = mass_terms(mc, q, *spin_arrays(params, mc.size))
+        total = np.zeros(mc.size)
+        for b in self._bins:
+            zr, zi, norm = _overlap_parts(b, terms, tc)
+            total += (zr**2 + zi**2) / np.maximum(norm, 1e-300)
+        return np.sqrt(total)
+
     def unit_overlaps(
         self, terms: MassTerms, times: Sequence[Array]
     ) -> list[tuple[Array, Array, Array | float]]:

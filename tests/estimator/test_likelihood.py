@@ -207,8 +207,9 @@ def test_relative_binning_matches_exact_near_fiducial(mc, q):
 
 @pytest.mark.parametrize(("mc", "f_high"), [(1.25, 900.0), (1.25, 1900.0), (25.0, 900.0)])
 def test_binned_fast_path_equals_its_general_form(mc, f_high):
-    """log_likelihood's few-operation path against ln I0(|z|) - <h|h>/2 from overlaps(),
-    with every ISCO above the band, all in one bin, and spread over several bins."""
+    """log_likelihood's and matched_filter_snr's few-operation paths against their
+    general forms from overlaps(), with every ISCO above the band, all in one bin, and
+    spread over several bins."""
     rate = 4096.0
     duration = 32.0 if mc < 2 else 8.0
     tc = START + duration - 2.0
@@ -229,6 +230,9 @@ def test_binned_fast_path_equals_its_general_form(mc, f_high):
         z, hh = binned.overlaps(pts)
         want = np.sum(log_i0(np.abs(z)) - 0.5 * hh, axis=0)
         np.testing.assert_allclose(binned.log_likelihood(pts), want, rtol=0, atol=1e-6)
+        # The SNR's fast path (amplitude cancelled) against sqrt(|z|^2 / <h|h>).
+        np.testing.assert_allclose(binned.matched_filter_snr(pts),
+                                   np.sqrt(np.sum(np.abs(z) ** 2 / hh, axis=0)), rtol=1e-6)
 
 
 def test_binned_overlap_has_the_exact_phase():
@@ -247,3 +251,34 @@ def test_binned_overlap_has_the_exact_phase():
     z_binned, _ = RelativeBinningLikelihood([data], tc, fid, n_bins=64).overlaps(p)
     assert abs(np.angle(z_binned[0, 0] / z_exact[0, 0])) < 1e-3
     assert abs(abs(z_binned[0, 0]) / abs(z_exact[0, 0]) - 1) < 1e-4
+
+
+def test_profiled_distance_is_the_likelihood_at_its_maximum():
+    """The fiducial climb's distance-profiled ln L (one overlap evaluation) equals the
+    likelihood evaluated at the returned distance, which is the maximum over distance
+    (up to the large-SNR form D = <h1|h1>/|z1| the profile uses)."""
+    from estimator.fiducial import _profile_distance
+
+    tc = START + 14.0
+    inj = Injection(12.0, 0.7, 400.0, tc, 0.4, model="taylorf2")
+    data = condition(
+        simulate_segment(SPECTRUM, duration=16.0, sample_rate=2048.0, start_time=START,
+                         rng=np.random.default_rng(21), injection=inj),
+        SPECTRUM, f_low=20.0, f_high=900.0,
+    )
+    x = np.array([12.0 * (1 + 1e-4), 0.72, 2e-4])
+    for like in (ExactLikelihood([data], tc),
+                 RelativeBinningLikelihood([data], tc, _fid(12.0, 0.7, 400.0), n_bins=64)):
+        got, dist = _profile_distance(like, x, {})
+        p = _params(chirp_mass=[x[0]] * 3, mass_ratio=[x[1]] * 3, coalescence_time=[x[2]] * 3,
+                    effective_distance=[dist, 0.9 * dist, 1.1 * dist])
+        full = like.log_likelihood(p)
+        # rel 1e-6: both likelihoods use single-precision trigonometry (see above)
+        assert got == pytest.approx(full[0], rel=1e-6)
+        assert full[0] > max(full[1], full[2])
+        assert got > 20.0  # a loud signal: the profile's large-SNR form holds
+
+
+def _fid(mc: float, q: float, dist: float) -> dict[str, float]:
+    return {"chirp_mass": mc, "mass_ratio": q, "effective_distance": dist,
+            "coalescence_time": 0.0}

@@ -156,9 +156,10 @@ def test_spectrum_plot(tmp_path: Path) -> None:
         plots.spectrum_plot(f, psd[:-1], f, asd, out, f_low=20.0, f_high=1024.0)
 
 
-def test_trace_plot(tmp_path: Path) -> None:
+@pytest.mark.parametrize("walkers", [24, 64])  # all walkers drawn; 32 of 64 drawn
+def test_trace_plot(tmp_path: Path, walkers: int) -> None:
     rng = np.random.default_rng(11)
-    chain = rng.standard_normal((1500, 24, 4))
+    chain = rng.standard_normal((1500, walkers, 4))
     chain[:300] += np.linspace(4.0, 0.0, 300)[:, None, None]
     out = tmp_path / "traces.png"
     names = list(LABELS)
