@@ -14,6 +14,7 @@ checks in :mod:`estimator.plot_base`; ``normalised_energy_map``,
 
 from __future__ import annotations
 
+import textwrap
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 
@@ -252,7 +253,9 @@ def trace_plot(
         low, high = float(y.min()), float(y.max())
         pad = 0.05 * (high - low) or 0.5 * abs(low) or 1.0
         ax.set(xlim=(0, n_steps - 1), ylim=(low - pad, high + pad))
-        ax.set_ylabel(labels.get(name, name), fontsize=8)
+        # Long labels wrap onto lines of ~18 characters, so neighbouring panels' labels
+        # (each panel is 1.35 in tall) neither overlap nor run off the figure.
+        ax.set_ylabel(textwrap.fill(labels.get(name, name), 18), fontsize=7.5)
         ax.yaxis.set_major_formatter(ScalarFormatter(useOffset=False))
         style_axes(ax)
     if burn_in > 0:
