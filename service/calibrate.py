@@ -8,7 +8,9 @@ calibrated; one on the truth would not). Candidates below the threshold are
 redrawn from the same injection's random stream, so every injection is
 reproducible from ``(seed, index)`` alone. The full analysis then runs on the
 data as it would on a candidate; the truths' credible levels feed
-:mod:`estimator.calibration`. Injections run in parallel processes.
+:mod:`estimator.calibration`. Injections run in parallel local processes, or on
+a Dask cluster (``--scheduler``): the same rows either way, as each depends only on
+``(seed, index)``.
 """
 
 from __future__ import annotations
@@ -37,6 +39,7 @@ from estimator.summary import PARAMETER_LABELS
 from estimator.validation import default_f_high
 
 from .drill import optimal_snr
+from .execution import one_thread_env
 
 __all__ = ["CALIBRATION_FILES", "CalibrationSetup", "run_calibration", "run_injection"]
 
@@ -187,10 +190,6 @@ def run_injection(setup: CalibrationSetup, index: int) -> dict[str, Any]:
     return row
 
 
-#: One process per core: each one's numerical libraries keep to one thread.
-_ONE_THREAD = {"OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
-
-
 def run_in_processes(
     function: Callable[[Any, int], dict[str, Any]],
     setup: Any,
@@ -206,21 +205,13 @@ def run_in_processes(
     workers = max(1, workers or os.cpu_count() or 1)
     rows: list[dict[str, Any]] = []
     context = multiprocessing.get_context("spawn")
-    saved = {k: os.environ.get(k) for k in _ONE_THREAD}
-    os.environ.update(_ONE_THREAD)  # inherited by the processes the pool spawns
-    try:
-        with ProcessPoolExecutor(workers, mp_context=context) as pool:
-            futures = [pool.submit(function, setup, i) for i in range(count)]
-            for done, future in enumerate(as_completed(futures), start=1):
-                rows.append(future.result())
-                if progress is not None:
-                    progress(done, count)
-    finally:
-        for key, value in saved.items():
-            if value is None:
-                os.environ.pop(key, None)
-            else:
-                os.environ[key] = value
+    # one thread each, from the environment the pool's processes inherit
+    with one_thread_env(), ProcessPoolExecutor(workers, mp_context=context) as pool:
+        futures = [pool.submit(function, setup, i) for i in range(count)]
+        for done, future in enumerate(as_completed(futures), start=1):
+            rows.append(future.result())
+            if progress is not None:
+                progress(done, count)
     rows.sort(key=lambda r: int(r["index"]))
     return rows
 
@@ -230,19 +221,28 @@ def run_calibration(
     out_dir: Path,
     *,
     workers: int | None = None,
+    scheduler: str | None = None,
     progress: Callable[[int, int], None] | None = None,
 ) -> dict[str, Any]:
-    """Run every injection (``workers`` processes), write :data:`CALIBRATION_FILES`.
+    """Run every injection, write :data:`CALIBRATION_FILES`; return ``calibration.json``.
 
-    Returns the ``calibration.json`` document.
+    The injections run in ``workers`` local processes, or on the Dask cluster of
+    ``scheduler`` (``tcp://HOST:PORT``; ``workers`` is then its number of threads).
     """
     from estimator.pp_plot import pp_plot  # matplotlib only when the plot is drawn
 
     clock = time.perf_counter()
-    workers = max(1, workers or os.cpu_count() or 1)
-    rows = run_in_processes(
-        run_injection, setup, setup.injections, workers=workers, progress=progress
-    )
+    if scheduler:
+        from .dask_engine import map_on_cluster
+
+        rows, workers = map_on_cluster(
+            run_injection, setup, setup.injections, scheduler=scheduler, progress=progress
+        )
+    else:
+        workers = max(1, workers or os.cpu_count() or 1)
+        rows = run_in_processes(
+            run_injection, setup, setup.injections, workers=workers, progress=progress
+        )
     wall = time.perf_counter() - clock
     tested = [k for k in TESTED if f"{k}_level" in rows[0]]
     summary = summarize_levels({k: [r[f"{k}_level"] for r in rows] for k in tested})
@@ -258,6 +258,7 @@ def run_calibration(
         **summary.to_dict(),
         "wall_time_s": round(wall, 1),
         "workers": workers,
+        "scheduler": scheduler,
         "setup": asdict(setup),
         "selection": (
             f"observed matched-filter SNR of the search >= {setup.snr_threshold:g}; "

@@ -8,15 +8,13 @@ with :func:`service.app.create_app`.
 from __future__ import annotations
 
 import math
-import threading
-import time
-from collections import deque
 from typing import Annotated
 
 from fastapi import Depends, Header, Request
 
 from .settings import ServiceSettings
 from .storage import Store
+from .store_rates import take_slot
 
 __all__ = [
     "ApiError",
@@ -47,24 +45,18 @@ class ApiError(Exception):
 
 
 class RateLimiter:
-    """At most ``per_minute`` events per key in any 60 s window (in memory, one process)."""
+    """At most ``per_minute`` events per key in any 60 s window, counted in the database.
 
-    def __init__(self, per_minute: int) -> None:
-        self.per_minute = per_minute
-        self._seen: dict[str, deque[float]] = {}
-        self._lock = threading.Lock()
+    Every web process using the same store (SQLite file or PostgreSQL database) shares
+    the count, so the limit holds however many processes serve.
+    """
+
+    def __init__(self, store: Store, per_minute: int) -> None:
+        self.store, self.per_minute = store, per_minute
 
     def check(self, key: str, now: float | None = None) -> float:
         """Record one event; return 0, or the seconds to wait when over the limit."""
-        now = time.monotonic() if now is None else now
-        with self._lock:
-            seen = self._seen.setdefault(key, deque())
-            while seen and seen[0] <= now - 60.0:
-                seen.popleft()
-            if len(seen) >= self.per_minute:
-                return seen[0] + 60.0 - now
-            seen.append(now)
-            return 0.0
+        return take_slot(self.store, key, per_minute=self.per_minute, window=60.0, now=now)
 
 
 def get_settings(request: Request) -> ServiceSettings:

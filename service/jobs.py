@@ -1,10 +1,13 @@
 """The life of an analysis in the queue: claim, heartbeat, progress, preview, finish, requeue.
 
-Every state change is one SQL statement (or one ``BEGIN IMMEDIATE`` transaction)
-guarded by the claiming worker's id and attempt number, so a worker that lost its
-claim (its heartbeat went stale and the job was taken up again) can no longer
-change the job: an accepted analysis is never lost, and never completed twice.
-A job that goes back to the queue loses its stage, progress and preview with its claim.
+Every state change is one SQL statement (or one transaction) guarded by the claiming
+worker's id and attempt number, so a worker that lost its claim (its heartbeat went
+stale and the job was taken up again) can no longer change the job: an accepted
+analysis is never lost, and never completed twice. A job that goes back to the queue
+loses its stage, progress and preview with its claim. The SQL runs on either engine
+of the store: a sub-select that picks rows to change ends with the engine's
+``skip_locked`` (PostgreSQL: ``FOR UPDATE SKIP LOCKED``, so concurrent claimers and
+sweepers pass over each other's rows; SQLite: nothing, one writer holds the file).
 """
 
 from __future__ import annotations
@@ -61,7 +64,8 @@ def claim(store: Store, worker: str) -> Claim | None:
             "UPDATE analyses SET state = 'running', stage = 'starting', progress = 0,"
             " preview = NULL, worker = ?, attempts = attempts + 1, heartbeat = ?, updated = ?"
             " WHERE id = (SELECT id FROM analyses WHERE state = 'queued'"
-            " ORDER BY created, id LIMIT 1) AND state = 'queued' RETURNING *",
+            f" ORDER BY created, id LIMIT 1{store.engine.skip_locked}) AND state = 'queued'"
+            " RETURNING *",
             (worker, now, now),
         ).fetchone()
     if row is None:
@@ -128,24 +132,25 @@ def still_ours(store: Store, job: Claim) -> bool:
 
 
 def finish(store: Store, job: Claim, attempt_dir: Path) -> bool:
-    """Move the attempt's output folder into place and mark the job done, if still ours."""
+    """Move the attempt's output folder into place and mark the job done, if still ours.
+
+    The guarded update comes first: it holds the row (PostgreSQL) or the file (SQLite)
+    until the folder is in place and the transaction commits; a failed move rolls it back.
+    """
     target = store.output_dir(job.id)
+    now = time.time()
     with store.transaction() as db:
-        row = db.execute(
-            f"SELECT 1 FROM analyses WHERE {_GUARD}", (job.id, job.worker, job.attempt)
-        ).fetchone()
-        if row is None:
+        cur = db.execute(
+            "UPDATE analyses SET state = 'done', stage = 'done', progress = 1,"
+            f" updated = ?, heartbeat = ? WHERE {_GUARD}",
+            (now, now, job.id, job.worker, job.attempt),
+        )
+        if cur.rowcount != 1:
             shutil.rmtree(attempt_dir, ignore_errors=True)
             return False
         if target.exists():
             shutil.rmtree(target)
         attempt_dir.rename(target)
-        now = time.time()
-        db.execute(
-            "UPDATE analyses SET state = 'done', stage = 'done', progress = 1,"
-            " updated = ?, heartbeat = ? WHERE id = ?",
-            (now, now, job.id),
-        )
     return True
 
 
@@ -192,18 +197,20 @@ def requeue_stale(
 ) -> int:
     """Requeue running jobs whose heartbeat is older than ``stale_after`` seconds.
 
-    With ``everything=True`` (the server has just started and owns the data folder)
-    every running job is taken as orphaned. A job that has already used
-    ``max_attempts`` claims fails instead, so an input that kills its worker cannot
-    loop forever. Returns the number of jobs requeued or failed.
+    With ``everything=True`` (the server has just started and owns the data folder
+    and its SQLite file) every running job is taken as orphaned; never pass it for a
+    database that other servers share. A job that has already used ``max_attempts``
+    claims fails instead, so an input that kills its worker cannot loop forever.
+    Returns the number of jobs requeued or failed.
     """
     now = time.time()
     cutoff = now + 1.0 if everything else now - stale_after
+    stale = ("SELECT id FROM analyses WHERE state = 'running' AND heartbeat < ?"
+             " AND attempts {} ?" + store.engine.skip_locked)
     with store.transaction() as db:
         failed = db.execute(
             "UPDATE analyses SET state = 'failed', error_message = ?, error_field = NULL,"
-            " updated = ? WHERE state = 'running' AND heartbeat < ? AND attempts >= ?"
-            " RETURNING id",
+            f" updated = ? WHERE id IN ({stale.format('>=')}) RETURNING id",
             (
                 f"the analysis stopped its worker {max_attempts} times (out of memory or"
                 " killed); try a shorter segment or ask the operator to look at the logs",
@@ -214,10 +221,9 @@ def requeue_stale(
         ).fetchall()
         requeued = db.execute(
             "UPDATE analyses SET state = 'queued', stage = 'queued', progress = 0,"
-            " preview = NULL, worker = NULL, updated = ? WHERE state = 'running'"
-            " AND heartbeat < ?"
+            f" preview = NULL, worker = NULL, updated = ? WHERE id IN ({stale.format('<')})"
             " RETURNING id",
-            (now, cutoff),
+            (now, cutoff, max_attempts),
         ).fetchall()
     for row in requeued:
         log.warning("analysis %s: its worker went silent; queued again", row[0])

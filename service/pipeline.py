@@ -240,9 +240,13 @@ _POOL: ProcessPoolExecutor | None = None
 
 
 def _plot_pool() -> ProcessPoolExecutor | None:
-    """One long-lived helper process for plots, where the platform can fork and has a core."""
+    """One long-lived helper process for plots, where the platform can fork and has a core.
+
+    None in a daemonic process (a Dask worker's), which may not have children.
+    """
     global _POOL
-    if _POOL is None and (os.cpu_count() or 1) > 1 and "fork" in mp.get_all_start_methods():
+    if (_POOL is None and (os.cpu_count() or 1) > 1 and "fork" in mp.get_all_start_methods()
+            and not mp.current_process().daemon):
         _POOL = ProcessPoolExecutor(1, mp_context=mp.get_context("fork"))
     return _POOL
 

@@ -13,6 +13,11 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field
 
 __all__ = [
+    "ERROR_MEANINGS",
+    "EVENTS_CONTENT",
+    "FILE_CONTENT",
+    "NETWORK_FORM_SCHEMA",
+    "SUBMIT_FORM_SCHEMA",
     "AnalysisCreate",
     "AnalysisList",
     "AnalysisPublic",
@@ -27,6 +32,8 @@ __all__ = [
     "ShareLink",
     "Submitted",
     "api_field",
+    "error_responses",
+    "page_error_responses",
 ]
 
 State = Literal["queued", "running", "done", "failed", "cancelled"]
@@ -198,6 +205,75 @@ class Health(ApiModel):
     version: str
     queued: int
     running: int
+
+
+#: What each error status of the API means (the descriptions of ``responses=``).
+ERROR_MEANINGS: dict[int, str] = {
+    400: "the body is not well-formed multipart",
+    401: "an API key is needed and none or a wrong one was sent",
+    404: "no such analysis, file or share link",
+    409: "the analysis is already in a final state",
+    413: "the body or a file is larger than the upload limit",
+    422: "a parameter, form field or file is invalid; error.field names it",
+    429: "too many submissions with this key in the last minute (see Retry-After)",
+    503: "the queue is full; retry after Retry-After seconds",
+}
+
+
+def error_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
+    """``responses=`` of an API route: each status answered with :class:`ErrorBody`."""
+    return {s: {"model": ErrorBody, "description": ERROR_MEANINGS[s]} for s in statuses}
+
+
+def page_error_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
+    """``responses=`` of a page route: an HTML error page, or :class:`ErrorBody` on request.
+
+    The JSON form is sent when the client accepts ``application/json`` and not ``text/html``.
+    """
+    content = {"text/html": {"schema": {"type": "string"}},
+               "application/json": {"schema": {"$ref": "#/components/schemas/ErrorBody"}}}
+    return {s: {"description": ERROR_MEANINGS[s], "content": content} for s in statuses}
+
+
+_FILE = {"type": "string", "contentMediaType": "application/octet-stream"}
+#: What OpenAPI cannot say with fixed names: the per-detector fields of a network.
+NETWORK_FORM_SCHEMA: dict[str, Any] = {"requestBody": {"content": {"multipart/form-data": {
+    "schema": {"patternProperties": {
+        r"^strain\.[A-Za-z0-9_-]{1,32}$": {**_FILE, "description": "network: the strain"
+                                            " segment of the detector at site NAME"},
+        r"^psd\.[A-Za-z0-9_-]{1,32}$": {**_FILE, "description": "network: the noise PSD of"
+                                         " site NAME (for every detector or for none)"},
+    }}}}}}
+#: The whole multipart body of a submission, for the OpenAPI description (the route
+#: reads the form itself, after the key check, so FastAPI cannot describe it).
+SUBMIT_FORM_SCHEMA: dict[str, Any] = {"requestBody": {"required": True, "content": {
+    "multipart/form-data": {"schema": {
+        "type": "object", "title": "SubmitForm", "required": ["settings"],
+        "properties": {
+            "settings": {"type": "string", "description": "JSON object: trigger_time and"
+                         " options (AnalysisCreate)",
+                         "examples": ['{"trigger_time": 1000000006.0}']},
+            "strain": {**_FILE, "description": "one detector: strain segment, CSV/text,"
+                       " .npy or .npz"},
+            "psd": {**_FILE, "description": "one detector: noise PSD (estimated when absent)"},
+            "sites": {**_FILE, "description": "network: site file, TOML or JSON (the shipped"
+                      " sites when absent)"},
+        },
+        **NETWORK_FORM_SCHEMA["requestBody"]["content"]["multipart/form-data"]["schema"],
+    }}}}}
+#: The 200 of a file download, by the file's kind (``responses=`` of the file routes).
+FILE_CONTENT: dict[str, Any] = {"description": "the file", "content": {
+    media: {"schema": {"type": "object"} if media == "application/json" else {}}
+    for media in ("application/json", "image/png", "text/csv", "text/html")}}
+#: The 200 of the event stream.
+EVENTS_CONTENT: dict[str, Any] = {"description": "server-sent events (progress, end)",
+                                  "content": {"text/event-stream": {"schema": {
+                                      "type": "object", "description": "one event",
+                                      "properties": {
+                                          "event": {"enum": ["progress", "end"]},
+                                          "data": {"type": "string", "description": "JSON:"
+                                                   " ProgressEvent, or {state} at the end"},
+                                          "retry": {"type": "integer"}}}}}}
 
 
 #: ``detector:NAME[:PART]`` of :mod:`service.network_pipeline` (PART: strain, psd, ...).

@@ -1,10 +1,11 @@
 """``chirpcast serve``: the web process plus its worker processes, on one machine.
 
-Start-up order: check the host is allowed (a non-loopback host needs an API key),
-take the data folder's lock (one server per folder), requeue every analysis
-left ``running`` by an earlier server that died, start the workers, then serve
-with uvicorn until SIGINT or SIGTERM; the workers then put unfinished analyses
-back in the queue and exit.
+Start-up order: open the database (a bad ``database_url`` stops here), check the
+host is allowed (a non-loopback host needs an API key), take over the data folder
+(:func:`take_over`: with SQLite, one server per folder), start the workers (local
+processes, or a dispatcher to a Dask cluster: an unreachable scheduler stops here), then
+serve with uvicorn until SIGINT or SIGTERM; the workers then put unfinished
+analyses back in the queue and exit.
 """
 
 from __future__ import annotations
@@ -12,20 +13,22 @@ from __future__ import annotations
 import fcntl
 import ipaddress
 import logging
+import math
 import os
 import shutil
 import signal
+import time
 from pathlib import Path
 from typing import IO
 
 from estimator.errors import InputError
 
 from . import jobs
+from .execution import make_executor
 from .settings import ServiceSettings
-from .storage import Store
-from .worker import WorkerPool
+from .storage import Store, open_store
 
-__all__ = ["is_loopback", "lock_data_dir", "serve"]
+__all__ = ["is_loopback", "lock_data_dir", "serve", "take_over"]
 
 log = logging.getLogger(__name__)
 
@@ -57,6 +60,43 @@ def lock_data_dir(data_dir: Path) -> IO[str]:
     return handle
 
 
+#: With a shared database, a partial upload older than this (s) was cut off by a kill.
+STALE_UPLOAD_SECONDS = 3600.0
+
+
+def take_over(settings: ServiceSettings, store: Store) -> IO[str] | None:
+    """Start-up housekeeping; return the data folder's lock to hold (``None``: shared).
+
+    SQLite: this server owns the data folder: lock it, delete every partial upload and
+    requeue every analysis left running by an earlier server that died. PostgreSQL:
+    other servers may use the same database and folder right now: take no lock, delete
+    only partial uploads older than :data:`STALE_UPLOAD_SECONDS` and requeue only
+    analyses whose heartbeat went stale.
+    """
+    shared = store.engine.shared
+    lock = None if shared else lock_data_dir(settings.data_dir)
+    try:
+        cutoff = time.time() - STALE_UPLOAD_SECONDS if shared else math.inf
+        for partial in (settings.data_dir / "tmp").iterdir():  # uploads cut off by a kill
+            try:
+                stale = partial.stat().st_mtime < cutoff
+            except FileNotFoundError:  # another server finished it meanwhile
+                continue
+            if stale:
+                shutil.rmtree(partial, ignore_errors=True)
+        orphans = jobs.requeue_stale(
+            store, stale_after=settings.stale_after_seconds,
+            max_attempts=settings.max_attempts, everything=not shared,
+        )
+    except BaseException:
+        if lock is not None:
+            lock.close()
+        raise
+    if orphans:
+        log.warning("%d analyses left running by a server that stopped: queued again", orphans)
+    return lock
+
+
 def _note_signal(signum: int, frame: object) -> None:
     log.info("signal %d: stopping", signum)
 
@@ -67,24 +107,18 @@ def serve(settings: ServiceSettings) -> int:
 
     from .app import create_app
 
-    store = Store(settings.data_dir)
+    store = open_store(settings)
     store.initialize()
     if not is_loopback(settings.host) and not store.has_keys():
+        where = "--database-url URL" if store.engine.shared else f"--data-dir {settings.data_dir}"
         msg = f"refusing to listen on {settings.host}: no API keys exist, so anyone who can"
-        msg += " reach it could submit; create one with 'chirpcast keys add NAME"
-        msg += f" --data-dir {settings.data_dir}' or serve on 127.0.0.1"
+        msg += f" reach it could submit; create one with 'chirpcast keys add NAME {where}'"
+        msg += " or serve on 127.0.0.1"
         raise InputError(msg, field="host")
-    lock = lock_data_dir(settings.data_dir)
+    lock = take_over(settings, store)
     try:
-        for partial in (settings.data_dir / "tmp").iterdir():  # uploads cut off by a kill
-            shutil.rmtree(partial, ignore_errors=True)
-        orphans = jobs.requeue_stale(
-            store, stale_after=0.0, max_attempts=settings.max_attempts, everything=True
-        )
-        if orphans:
-            log.warning("%d analyses left running by an earlier server: queued again", orphans)
-        pool = WorkerPool(settings, settings.workers)
-        pool.start()
+        pool = make_executor(settings)  # local processes, or a Dask cluster (--scheduler)
+        pool.start()  # an unreachable scheduler stops here, before anything listens
         try:
             config = uvicorn.Config(
                 create_app(settings),
@@ -101,5 +135,6 @@ def serve(settings: ServiceSettings) -> int:
         finally:
             pool.stop()
     finally:
-        lock.close()
+        if lock is not None:
+            lock.close()
     return 0

@@ -1,11 +1,12 @@
 """The files of a submission: which fields it carries, saving them hashed, reading them once.
 
-``POST /api/v1/analyses`` takes either one detector (file fields ``strain`` and,
-optionally, ``psd``) or a network of two or more (``strain.NAME`` and, optionally,
-``psd.NAME`` per detector, NAME a site name, plus an optional ``sites`` file). This
-module checks that layout (:func:`form_layout`), copies the uploads into a scratch
-folder while hashing them, and reads every file once so that bad input is answered
-with 422 before anything is committed (:func:`save_single`, :func:`save_network`).
+``POST /api/v1/analyses`` takes a ``settings`` text field (:func:`settings_text`) and
+either one detector (file fields ``strain`` and, optionally, ``psd``) or a network of
+two or more (``strain.NAME`` and, optionally, ``psd.NAME`` per detector, NAME a site
+name, plus an optional ``sites`` file). This module checks that layout
+(:func:`form_layout`), copies the uploads into a scratch folder while hashing them, and
+reads every file once so that bad input is answered with 422 before anything is
+committed (:func:`save_single`, :func:`save_network`).
 """
 
 from __future__ import annotations
@@ -28,7 +29,6 @@ from .storage import NETWORK
 
 __all__ = [
     "DETECTOR_NAME",
-    "NETWORK_FORM_SCHEMA",
     "DetectorUpload",
     "Layout",
     "form_layout",
@@ -36,6 +36,7 @@ __all__ = [
     "save_network",
     "save_single",
     "save_upload",
+    "settings_text",
 ]
 
 _CHUNK = 1 << 20
@@ -45,17 +46,6 @@ _PER_DETECTOR = ("strain", "psd")
 _SETTINGS_KEYS = {
     "trigger_time", "f_low", "f_high", "chirp_mass_guess", "seed", "model", "spin_max", "gating"
 }
-_FILE = {"type": "string", "contentMediaType": "application/octet-stream"}
-#: What OpenAPI cannot say with fixed names: the per-detector fields of a network.
-NETWORK_FORM_SCHEMA: dict[str, Any] = {"requestBody": {"content": {"multipart/form-data": {
-    "schema": {"patternProperties": {
-        r"^strain\.[A-Za-z0-9_-]{1,32}$": {**_FILE, "description": "network: the strain"
-                                            " segment of the detector at site NAME"},
-        r"^psd\.[A-Za-z0-9_-]{1,32}$": {**_FILE, "description": "network: the noise PSD of"
-                                         " site NAME (for every detector or for none)"},
-    }}}}}}
-
-
 @dataclass(frozen=True)
 class DetectorUpload:
     """One detector's uploads; ``name`` is ``None`` for the one-detector ``strain``/``psd``."""
@@ -137,6 +127,18 @@ def form_layout(form: FormData) -> Layout:
                       " (add strain.NAME for another site), and one detector is sent as"
                       " 'strain' with an optional 'psd'")
     return Layout(tuple(detectors), _file(form, "sites"))
+
+
+def settings_text(form: FormData) -> str:
+    """The ``settings`` field as text (422 when missing or sent as a file)."""
+    value = form.get("settings")
+    if value is None:
+        raise ApiError(422, "bad_request", "settings: this field is required; send a JSON"
+                       ' object such as {"trigger_time": 1000000006.0}', field="settings")
+    if not isinstance(value, str):
+        raise ApiError(422, "bad_request", "settings: expected a text field holding JSON, got"
+                       " a file upload; send it as a plain form field", field="settings")
+    return value
 
 
 def _single(form: FormData) -> Layout:

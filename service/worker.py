@@ -31,16 +31,17 @@ from estimator.errors import ConvergenceError, InputError
 from estimator.settings import AnalysisSettings
 
 from . import jobs
+from .execution import one_thread_env
 from .schemas import api_field
 from .settings import ServiceSettings
-from .storage import NETWORK, Store
+from .storage import NETWORK, Store, open_store
 
 if TYPE_CHECKING:
     from .network_pipeline import NetworkRequest
     from .pipeline import AnalysisRequest
 
-__all__ = ["WorkerPool", "build_request", "network_request", "request_from_json", "run_one_job",
-           "worker_main"]  # fmt: skip
+__all__ = ["WorkerPool", "build_request", "guard_forks", "network_request", "request_from_json",
+           "run_one_job", "worker_main"]  # fmt: skip
 
 log = logging.getLogger(__name__)
 
@@ -177,8 +178,9 @@ def _run(store: Store, job: jobs.Claim, settings: ServiceSettings) -> None:
     for left in [*folder.glob("attempt-*"), *folder.glob(".attempt-*")]:  # of dead workers
         shutil.rmtree(left, ignore_errors=True)
     try:
-        request = build_request(store, job.id, job.analysis.request)
         with _Reporter(store, job, settings.heartbeat_seconds) as reporter:
+            # beating already: a fresh process's first request imports the pipeline (seconds)
+            request = build_request(store, job.id, job.analysis.request)
             _analyze(request, attempt_dir, reporter)
             if reporter.lost.is_set():
                 raise _Stop
@@ -209,7 +211,7 @@ def _run(store: Store, job: jobs.Claim, settings: ServiceSettings) -> None:
 
 def run_one_job(settings: ServiceSettings, *, worker: str | None = None) -> str | None:
     """Claim one queued analysis and run it here, to its end; return its id (``None``: idle)."""
-    store = Store(settings.data_dir)
+    store = open_store(settings)
     job = jobs.claim(store, worker or f"{socket.gethostname()}:{os.getpid()}")
     if job is None:
         return None
@@ -232,6 +234,11 @@ def _forked_helper() -> None:
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
 
 
+def guard_forks() -> None:
+    """Make every process forked from this one die with it (the pipeline's plot helper)."""
+    os.register_at_fork(after_in_child=_forked_helper)
+
+
 def _on_sigterm(signum: int, frame: object) -> None:
     _TERMINATE.set()
 
@@ -239,13 +246,13 @@ def _on_sigterm(signum: int, frame: object) -> None:
 def worker_main(settings_data: dict[str, Any], stop: Event, parent: int) -> None:
     """Entry point of a worker process: run analyses until ``stop`` is set."""
     _die_with_parent()
-    os.register_at_fork(after_in_child=_forked_helper)  # the pipeline's plot helper
+    guard_forks()
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the serving process coordinates shutdown
     signal.signal(signal.SIGTERM, _on_sigterm)
     logging.basicConfig(level=logging.INFO, format="chirpcast worker: %(levelname)s: %(message)s")
     logging.getLogger("matplotlib").setLevel(logging.WARNING)
     settings = ServiceSettings(**settings_data)
-    store = Store(settings.data_dir)
+    store = open_store(settings)
     name = f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:6]}"
     last_sweep = 0.0
     try:
@@ -272,7 +279,11 @@ def worker_main(settings_data: dict[str, Any], stop: Event, parent: int) -> None
 
 
 class WorkerPool:
-    """N worker processes (spawned), restarted when one dies, stopped on :meth:`stop`."""
+    """N worker processes (spawned), restarted when one dies, stopped on :meth:`stop`.
+
+    The default :class:`service.execution.Executor`; each process keeps its numerical
+    libraries to one thread (one analysis per core).
+    """
 
     def __init__(self, settings: ServiceSettings, count: int) -> None:
         self.settings, self.count = settings, count
@@ -288,8 +299,17 @@ class WorkerPool:
             args=(self.settings.model_dump(mode="json"), self._stop, os.getpid()),
             name="chirpcast-worker",
         )
-        proc.start()
+        with one_thread_env():  # inherited by the spawned process
+            proc.start()
         return proc
+
+    def capacity(self) -> int:
+        """Analyses run at once: one per worker process."""
+        return self.count
+
+    def describe(self) -> str:
+        """``"N worker process(es)"``."""
+        return f"{self.count} worker process{'es' if self.count != 1 else ''}"
 
     def start(self) -> None:
         """Start the workers and the thread that replaces any that die."""

@@ -6,13 +6,12 @@ import json
 import logging
 import secrets
 import shutil
-import sqlite3
 import time
 from collections.abc import AsyncIterator
 from typing import Annotated, Any
 
 import anyio
-from fastapi import APIRouter, Depends, File, Form, Header, Query, Request, UploadFile
+from fastapi import APIRouter, Depends, Header, Query, Request
 from fastapi.responses import FileResponse, Response, StreamingResponse
 from pydantic import ValidationError
 from starlette.datastructures import FormData
@@ -21,15 +20,20 @@ from .. import jobs
 from ..deps import ApiError, KeyDep, OptionalKeyDep, RateLimitedKeyDep, SettingsDep, StoreDep
 from ..pipeline import OUTPUT_FILES
 from ..schemas import (
+    EVENTS_CONTENT,
+    FILE_CONTENT,
+    SUBMIT_FORM_SCHEMA,
     AnalysisCreate,
     AnalysisList,
     AnalysisPublic,
     FisherPreview,
     ShareLink,
     Submitted,
+    error_responses,
 )
-from ..storage import FINAL_STATES, Analysis, Store, hash_secret
-from ..uploads import NETWORK_FORM_SCHEMA, form_layout, save_network, save_single
+from ..security import FILE_POLICY, BodyTooLarge
+from ..storage import FINAL_STATES, Analysis, DuplicateError, Store, hash_secret
+from ..uploads import form_layout, save_network, save_single, settings_text
 
 __all__ = ["output_file", "output_names", "public_view", "router"]
 
@@ -39,6 +43,8 @@ log = logging.getLogger(__name__)
 
 _MEDIA = {".png": "image/png", ".csv": "text/csv", ".json": "application/json",
           ".html": "text/html"}
+#: The largest list offset (past it SQLite's 64-bit integers overflow; found by fuzzing).
+_MAX_OFFSET = 1_000_000_000
 
 
 def _parse_settings(text: str) -> AnalysisCreate:
@@ -118,27 +124,36 @@ def _found(store: Store, analysis_id: str) -> Analysis:
     return analysis
 
 
-async def _form(request: Request) -> FormData:
-    """The parsed multipart body (parsed once by FastAPI for the declared fields, cached)."""
-    return await request.form()
+async def _form(request: Request, owner: RateLimitedKeyDep) -> AsyncIterator[FormData]:
+    """The multipart body, read only once the key and the rate limit let it in.
+
+    Depending on :func:`~service.deps.rate_limited_key` itself, it cannot run before
+    the key check, whatever the order of the route's parameters; a body that passes
+    the upload limit while streaming is answered 413 (its spooled parts are closed).
+    """
+    try:
+        form = await request.form()
+    except BodyTooLarge as err:
+        raise ApiError(413, "too_large", "the request body is larger than the upload limit;"
+                       " send a shorter segment or ask the operator to raise"
+                       " CHIRPCAST_MAX_UPLOAD_BYTES") from err
+    try:
+        yield form
+    finally:
+        await form.close()
 
 
-@router.post("", status_code=202, response_model=Submitted, openapi_extra=NETWORK_FORM_SCHEMA,
-             responses={200: {"model": Submitted, "description": "an idempotent replay"}})
+@router.post("", status_code=202, response_model=Submitted, openapi_extra=SUBMIT_FORM_SCHEMA,
+             responses={200: {"model": Submitted, "description": "an idempotent replay"},
+                        **error_responses(400, 401, 413, 422, 429, 503)})
 def submit(
     store: StoreDep, svc: SettingsDep, owner: RateLimitedKeyDep, response: Response,
     form: Annotated[FormData, Depends(_form)],
-    settings: Annotated[str, Form(description="JSON object: trigger_time and options")],
-    strain: Annotated[UploadFile | None, File(
-        description="one detector: strain segment, CSV/text, .npy or .npz")] = None,
-    psd: Annotated[UploadFile | None, File(
-        description="one detector: noise PSD (estimated when absent)")] = None,
-    sites: Annotated[UploadFile | None, File(
-        description="network: site file, TOML or JSON (the shipped sites when absent)")] = None,
     idempotency_key: Annotated[str | None, Header(max_length=200)] = None,
 ) -> Submitted:
     """Queue an analysis of uploaded strain (files stored and read before the answer).
 
+    The API key and the rate limit are checked before any of the body is read.
     **One detector**: a file `strain` and optionally `psd`, as always.
     **A network** (two detectors or more, analysed coherently): per detector a file
     `strain.NAME` and optionally `psd.NAME`, NAME its site's name (1-32 letters, digits,
@@ -150,6 +165,7 @@ def submit(
     gets 422 with `error.field` naming the field, e.g. `strain.NAME` or `psd.NAME`, and
     nothing is stored.
     """
+    settings = settings_text(form)
     layout = form_layout(form)
     if idempotency_key and (old := store.by_idempotency_key(owner, idempotency_key)):
         response.status_code = 200
@@ -176,7 +192,7 @@ def submit(
         store.insert_analysis(analysis_id=analysis_id, label=label, request=request,
                               inputs=inputs, owner=owner, idempotency_key=idempotency_key,
                               share_hash=hash_secret(token))
-    except sqlite3.IntegrityError:  # a concurrent retry with the same key won
+    except DuplicateError:  # a concurrent retry with the same key won
         shutil.rmtree(folder, ignore_errors=True)
         old = store.by_idempotency_key(owner, idempotency_key or "")
         if old is None:
@@ -187,10 +203,11 @@ def submit(
                      report_url=f"/r/{token}", share_token=token)
 
 
-@router.get("", response_model=AnalysisList)
+@router.get("", response_model=AnalysisList, responses=error_responses(401, 422))
 def list_analyses(
     store: StoreDep, owner: KeyDep,
-    limit: Annotated[int, Query(ge=1, le=200)] = 20, offset: Annotated[int, Query(ge=0)] = 0,
+    limit: Annotated[int, Query(ge=1, le=200)] = 20,
+    offset: Annotated[int, Query(ge=0, le=_MAX_OFFSET)] = 0,
 ) -> AnalysisList:
     """Analyses, newest first (without summaries; read one for its summary)."""
     rows, total = store.list(limit=limit, offset=offset)
@@ -198,13 +215,14 @@ def list_analyses(
     return AnalysisList(items=items, total=total, limit=limit, offset=offset)
 
 
-@router.get("/{analysis_id}", response_model=AnalysisPublic)
+@router.get("/{analysis_id}", response_model=AnalysisPublic, responses=error_responses(401, 404))
 def read_analysis(analysis_id: str, store: StoreDep, owner: OptionalKeyDep) -> AnalysisPublic:
     """State, stage, progress, error, Fisher-matrix preview or summary of one analysis."""
     return public_view(store, _found(store, analysis_id), with_share=owner is not None)
 
 
-@router.post("/{analysis_id}/cancel", response_model=AnalysisPublic)
+@router.post("/{analysis_id}/cancel", response_model=AnalysisPublic,
+             responses=error_responses(401, 404, 409))
 def cancel_analysis(analysis_id: str, store: StoreDep, owner: KeyDep) -> AnalysisPublic:
     """Cancel a queued or running analysis (again: no change; 409 once done or failed)."""
     state = jobs.cancel(store, analysis_id)
@@ -223,16 +241,20 @@ def output_file(store: Store, analysis: Analysis, name: str) -> FileResponse:
     if analysis.state != "done" or name not in names or not path.is_file():
         raise ApiError(404, "not_found", f"no file {name!r} for this analysis; files exist"
                        f" once it is done: {', '.join(sorted(names))}")
-    return FileResponse(path, media_type=_MEDIA.get(path.suffix, "application/octet-stream"))
+    # stored HTML (the self-contained report) is shown sandboxed: no script, no same-origin
+    return FileResponse(path, media_type=_MEDIA.get(path.suffix, "application/octet-stream"),
+                        headers={"Content-Security-Policy": FILE_POLICY})
 
 
-@router.get("/{analysis_id}/files/{name}", response_class=FileResponse)
+@router.get("/{analysis_id}/files/{name}", response_class=FileResponse,
+            responses={200: FILE_CONTENT, **error_responses(401, 404)})
 def download(analysis_id: str, name: str, store: StoreDep, owner: KeyDep) -> FileResponse:
     """Download samples.csv, summary.json, report.html or a plot of a done analysis."""
     return output_file(store, _found(store, analysis_id), name)
 
 
-@router.get("/{analysis_id}/events", response_class=StreamingResponse)
+@router.get("/{analysis_id}/events", response_class=StreamingResponse,
+            responses={200: EVENTS_CONTENT, **error_responses(404)})
 async def events(analysis_id: str, store: StoreDep, svc: SettingsDep) -> StreamingResponse:
     """Server-sent events {state, stage, progress} until a final state (or a time limit)."""
     first = await anyio.to_thread.run_sync(store.get, analysis_id)
@@ -264,7 +286,8 @@ async def events(analysis_id: str, store: StoreDep, svc: SettingsDep) -> Streami
                              headers={"Cache-Control": "no-store", "X-Accel-Buffering": "no"})
 
 
-@router.post("/{analysis_id}/share", response_model=ShareLink)
+@router.post("/{analysis_id}/share", response_model=ShareLink,
+             responses=error_responses(401, 404))
 def new_share(analysis_id: str, store: StoreDep, owner: KeyDep) -> ShareLink:
     """Make a new share link (the previous one stops working)."""
     analysis = _found(store, analysis_id)
@@ -274,7 +297,8 @@ def new_share(analysis_id: str, store: StoreDep, owner: KeyDep) -> ShareLink:
     return ShareLink(id=analysis_id, share_token=token, report_url=f"/r/{token}")
 
 
-@router.post("/{analysis_id}/share/revoke", status_code=204, response_class=Response)
+@router.post("/{analysis_id}/share/revoke", status_code=204, response_class=Response,
+             responses=error_responses(401, 404))
 def revoke_share(analysis_id: str, store: StoreDep, owner: KeyDep) -> Response:
     """Revoke the share link: /r/<token> then answers 404."""
     analysis = _found(store, analysis_id)

@@ -43,6 +43,7 @@ from estimator.sites import SHIPPED_SITES
 
 from ..formatting import format_fixed, format_uncertain, format_value
 from ..report import FISHER_LABELS, TEMPLATES_DIR
+from ..security import new_nonce, page_headers
 from ..uploads import DETECTOR_NAME
 
 __all__ = [
@@ -94,8 +95,6 @@ FIELD_LABELS: dict[str, str] = {
 _PREVIEW_UNITS: dict[str, tuple[str, float]] = {
     "Msun": ("M☉", 1.0), "s": ("ms", 1e3), "": ("—", 1.0),
 }
-#: Headers of every page: never cached (the status page changes, the form is cheap).
-_PAGE_HEADERS = {"Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"}
 
 router = APIRouter(tags=["pages"])
 
@@ -109,7 +108,11 @@ def _environment() -> jinja2.Environment:
 
 
 def render_page(name: str, context: Mapping[str, Any]) -> str:
-    """Render one of the service's page templates (``upload.html``, ``status.html``)."""
+    """Render a page template (``upload.html``, ``status.html``, ``error.html``...).
+
+    A ``csp_nonce`` in ``context`` is put on the page's ``<script>`` and ``<style>``
+    elements, for the content-security policy of :func:`service.security.page_policy`.
+    """
     return _environment().get_template(name).render(dict(context))
 
 
@@ -208,15 +211,23 @@ def render_status(
     label: str | None = None, error_message: str | None = None, error_field: str | None = None,
     preview: Mapping[str, Any] | None = None,
     detectors: Sequence[Mapping[str, Any]] | None = None,
+    csp_nonce: str | None = None,
 ) -> str:
-    """Render the live status page of one analysis (see :func:`status_context`)."""
-    return render_page("status.html", status_context(
+    """Render the live status page of one analysis (see :func:`status_context`).
+
+    ``csp_nonce`` marks the page's script and styles for the page's security policy.
+    """
+    context = status_context(
         analysis_id, state=state, stage=stage, progress=progress, label=label,
         error_message=error_message, error_field=error_field, preview=preview,
-        detectors=detectors))
+        detectors=detectors)
+    return render_page("status.html", context if csp_nonce is None
+                       else {**context, "csp_nonce": csp_nonce})
 
 
 @router.get("/", response_class=HTMLResponse, summary="Upload page")
 def upload_page() -> HTMLResponse:
     """The upload form: one detector's files or a network's, and the candidate's settings."""
-    return HTMLResponse(render_page("upload.html", upload_context()), headers=_PAGE_HEADERS)
+    nonce = new_nonce()
+    page = render_page("upload.html", {**upload_context(), "csp_nonce": nonce})
+    return HTMLResponse(page, headers=page_headers(nonce))

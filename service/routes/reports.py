@@ -15,9 +15,12 @@ from fastapi.responses import FileResponse, HTMLResponse
 
 from ..deps import ApiError, SettingsDep, StoreDep
 from ..pipeline import PLOT_FILES
-from ..report import render_report
+from ..report import build_context
+from ..schemas import FILE_CONTENT, page_error_responses
+from ..security import new_nonce, page_headers
 from ..storage import Analysis, Store, hash_secret
 from .analyses import output_file
+from .pages import render_page
 
 __all__ = ["router"]
 
@@ -25,7 +28,8 @@ log = logging.getLogger(__name__)
 
 router = APIRouter(prefix="/r", tags=["reports"])
 
-#: The token is a bearer secret in the URL: keep it out of caches and Referer headers.
+#: The token is a bearer secret in the URL: keep it out of caches and Referer headers
+#: (pages add their content-security policy, :func:`service.security.page_headers`).
 _HEADERS = {"Cache-Control": "no-store", "Referrer-Policy": "no-referrer",
             "X-Content-Type-Options": "nosniff"}
 
@@ -37,7 +41,7 @@ def _shared(store: Store, token: str) -> Analysis:
     return analysis
 
 
-def _status_page(analysis: Analysis) -> str:
+def _status_page(analysis: Analysis, nonce: str) -> str:
     """B's status template when present, else a minimal self-refreshing page."""
     try:
         from . import pages
@@ -46,7 +50,7 @@ def _status_page(analysis: Analysis) -> str:
             analysis.id, state=analysis.state, stage=analysis.stage, progress=analysis.progress,
             label=analysis.label, error_message=analysis.error_message,
             error_field=analysis.error_field, preview=analysis.preview,
-            detectors=analysis.detectors)
+            detectors=analysis.detectors, csp_nonce=nonce)
     except Exception:  # the template is optional: fall back to plain HTML
         log.debug("status template unavailable; plain status page", exc_info=True)
     error = (f"<p>{html.escape(analysis.error_message or '')}</p>"
@@ -62,12 +66,14 @@ def _status_page(analysis: Analysis) -> str:
     )
 
 
-@router.get("/{token}", response_class=HTMLResponse)
+@router.get("/{token}", response_class=HTMLResponse, responses=page_error_responses(404))
 def report_page(token: str, request: Request, store: StoreDep, svc: SettingsDep) -> HTMLResponse:
     """The report of a shared analysis; its live status page until it is done."""
     analysis = _shared(store, token)
+    nonce = new_nonce()
+    headers = {**_HEADERS, **page_headers(nonce)}
     if analysis.state != "done":
-        return HTMLResponse(_status_page(analysis), headers=_HEADERS)
+        return HTMLResponse(_status_page(analysis, nonce), headers=headers)
     out = store.output_dir(analysis.id)
     summary = json.loads((out / "summary.json").read_text(encoding="utf-8"))
     base = f"/r/{token}/files"
@@ -75,12 +81,15 @@ def report_page(token: str, request: Request, store: StoreDep, svc: SettingsDep)
     downloads = {name: f"{base}/{name}"
                  for name in ("samples.csv", "summary.json", *PLOT_FILES.values())}
     root = (svc.public_url or str(request.base_url)).rstrip("/")
-    page = render_report(summary, images=images, downloads=downloads,
-                         share_url=f"{root}/r/{token}")
-    return HTMLResponse(page, headers=_HEADERS)
+    # report.html as render_report makes it, plus the nonce on its <style> and <script>
+    context = build_context(summary, images=images, downloads=downloads,
+                            share_url=f"{root}/r/{token}")
+    page = render_page("report.html", {**context, "csp_nonce": nonce})
+    return HTMLResponse(page, headers=headers)
 
 
-@router.get("/{token}/files/{name}", response_class=FileResponse)
+@router.get("/{token}/files/{name}", response_class=FileResponse,
+            responses={200: FILE_CONTENT, **page_error_responses(404)})
 def shared_file(token: str, name: str, store: StoreDep) -> FileResponse:
     """A file of a shared, finished analysis (samples.csv, summary.json, plots, report)."""
     response = output_file(store, _shared(store, token), name)

@@ -148,16 +148,17 @@ def test_share_link_report_and_revoke(finished: dict[str, Any]) -> None:
     image = c.get(f"/r/{body['share_token']}/files/corner.png")
     assert image.content.startswith(PNG_SIGNATURE)
     wrong = body["share_token"][:-2] + ("AA" if body["share_token"][-2:] != "AA" else "BB")
-    assert _error(c.get(f"/r/{wrong}"), 404)["code"] == "not_found"
-    _error(c.get(f"/r/{wrong}/files/corner.png"), 404)
+    as_json = {"Accept": "application/json"}  # browsers get an HTML page (test_security.py)
+    assert _error(c.get(f"/r/{wrong}", headers=as_json), 404)["code"] == "not_found"
+    _error(c.get(f"/r/{wrong}/files/corner.png", headers=as_json), 404)
     # a new link replaces the old one; revoking ends both
     new = c.post(f"/api/v1/analyses/{body['id']}/share").json()
     assert new["share_token"] != body["share_token"]
-    _error(c.get(body["report_url"]), 404)
+    _error(c.get(body["report_url"], headers=as_json), 404)
     assert c.get(new["report_url"]).status_code == 200
     assert c.post(f"/api/v1/analyses/{body['id']}/share/revoke").status_code == 204
-    _error(c.get(new["report_url"]), 404)
-    _error(c.get(f"{new['report_url']}/files/summary.json"), 404)
+    _error(c.get(new["report_url"], headers=as_json), 404)
+    _error(c.get(f"{new['report_url']}/files/summary.json", headers=as_json), 404)
 
 
 def test_events_stream_ends_at_final_state(finished: dict[str, Any]) -> None:

@@ -1,8 +1,9 @@
 """The queue's guarantees: atomic claims, heartbeats, requeue of stale jobs, no double finish.
 
 A dead worker is simulated by a claim whose heartbeat is set into the past (common
-practice for lease-based job queues). Fast: only the cancellation test runs the
-pipeline, and it stops it within about a second.
+practice for lease-based job queues). Every test runs against both database engines
+(SQLite, and PostgreSQL where tests/service/conftest.py finds a server). Fast: only
+the cancellation test runs the pipeline, and it stops it within about a second.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ import pytest
 
 from service import jobs
 from service.settings import ServiceSettings
-from service.storage import Store, hash_secret
+from service.storage import Store, hash_secret, open_store
 from service.worker import run_one_job
 
 DEMO = Path(__file__).resolve().parents[2] / "demo_data"
@@ -49,13 +50,15 @@ def _age_heartbeat(store: Store, analysis_id: str, seconds: float) -> None:
 
 
 @pytest.fixture
-def store(tmp_path: Path) -> Store:
-    s = Store(tmp_path / "data")
+def store(tmp_path: Path, database_url: str | None) -> Store:
+    s = open_store(ServiceSettings(data_dir=tmp_path / "data", database_url=database_url))
     s.initialize()
     return s
 
 
-def test_wal_mode(store: Store) -> None:
+def test_wal_mode(tmp_path: Path) -> None:
+    store = Store(tmp_path / "data")
+    store.initialize()
     with store.connect() as db:
         assert db.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
 
@@ -145,9 +148,9 @@ def test_release_on_shutdown(store: Store) -> None:
     assert store.counts()["queued"] == 1
 
 
-def test_bad_input_fails_with_message(tmp_path: Path) -> None:
-    svc = ServiceSettings(data_dir=tmp_path / "data", workers=1)
-    store = Store(svc.data_dir)
+def test_bad_input_fails_with_message(tmp_path: Path, database_url: str | None) -> None:
+    svc = ServiceSettings(data_dir=tmp_path / "data", workers=1, database_url=database_url)
+    store = open_store(svc)
     store.initialize()
     _queue(store, "bad", strain=b"time,strain\n0,1\n1,2\n2,x\n")
     assert run_one_job(svc) == "bad"
@@ -158,9 +161,10 @@ def test_bad_input_fails_with_message(tmp_path: Path) -> None:
     assert not store.output_dir("bad").exists()
 
 
-def test_cancel_stops_a_running_job(tmp_path: Path) -> None:
-    svc = ServiceSettings(data_dir=tmp_path / "data", workers=1, heartbeat_seconds=0.1)
-    store = Store(svc.data_dir)
+def test_cancel_stops_a_running_job(tmp_path: Path, database_url: str | None) -> None:
+    svc = ServiceSettings(data_dir=tmp_path / "data", workers=1, heartbeat_seconds=0.1,
+                          database_url=database_url)
+    store = open_store(svc)
     store.initialize()
     _queue(store, "c")
     worker = threading.Thread(target=run_one_job, args=(svc,))
