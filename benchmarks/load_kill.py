@@ -33,16 +33,21 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--concurrency", type=int, default=8)
     parser.add_argument("--seed", type=int, default=2026)
+    parser.add_argument("--pace", type=float, default=1.4,
+                        help="seconds between submission starts (1.4: 50 over the ~70 s of kills)")
     parser.add_argument("--json", type=Path, default=ROOT / "benchmarks" / "results-load-kill.json")
     args = parser.parse_args(argv)
-    if args.submissions < 2 or args.kills < 0 or args.workers < 1 or args.concurrency < 1:
-        parser.error("--submissions >= 2, --kills >= 0, --workers >= 1, --concurrency >= 1")
+    if (args.submissions < 2 or args.kills < 0 or args.workers < 1 or args.concurrency < 1
+            or args.pace < 0):
+        parser.error("--submissions >= 2, --kills >= 0, --workers >= 1, --concurrency >= 1,"
+                     " --pace >= 0")
     facts = machine_facts()
     say(f"{args.submissions} submissions, {args.kills} kills, {args.workers} workers")
     with tempfile.TemporaryDirectory(prefix="chirpcast-load-kill-") as tmp:
         report = run_load_kill(Path(tmp), submissions=args.submissions, kills=args.kills,
                                seed=args.seed, workers=args.workers,
                                concurrency=args.concurrency, kill_gap=(1.0, 6.0),
+                               pace=args.pace,
                                load_timeout=1800.0, drain_timeout=3600.0)
     figures = report.to_dict()
     facts["load_average_end"] = load()

@@ -14,7 +14,6 @@ import io
 import json
 import re
 import tomllib
-import zipfile
 from pathlib import Path
 from typing import NoReturn
 
@@ -160,7 +159,9 @@ def _load_numpy(raw: bytes, name: str) -> tuple[Array, tuple[float, float] | Non
                 msg = f"no '{missing[0]}' in the archive (found {found}); expected {expected}"
                 _fail(msg, name, "strain")
             arrays = [np.asarray(archive[k]) for k in keys]
-    except (OSError, ValueError, zipfile.BadZipFile) as err:
+    except InputError:
+        raise
+    except Exception as err:  # corrupt bytes raise many kinds (zlib.error, TokenError, ...)
         msg = f"cannot read the NumPy data ({err}); expected {expected}"
         raise InputError(msg, source=name, field="strain") from err
     for key, a in zip(keys[1:], arrays[1:], strict=True):

@@ -5,7 +5,8 @@ The API (``/api/...``, ``/healthz``, ``/openapi.json``) always answers
 share links ``/r/...``) answer with ``templates/error.html``, unless the client asks
 for JSON only (``Accept: application/json``). Any other path (no route) gets the page
 when the client accepts ``text/html`` (a browser) and JSON otherwise. An unexpected
-exception is logged with the request id the client sees, never shown.
+exception is logged with the request id the client sees, never shown; one that says
+the data folder is full or not writable is answered 507 (:mod:`service.storage_faults`).
 """
 
 from __future__ import annotations
@@ -25,6 +26,7 @@ from .deps import ApiError
 from .routes.pages import UPLOAD_URL, render_page
 from .schemas import ErrorBody
 from .security import API_POLICY, BASIC_HEADERS, BodyTooLarge, new_nonce, page_headers
+from .storage_faults import is_storage_fault, storage_error
 
 __all__ = [
     "error_page",
@@ -147,6 +149,9 @@ def install_handlers(app: FastAPI) -> None:
     async def unexpected(request: Request, exc: Exception) -> Response:
         if isinstance(exc, BodyTooLarge):
             return _answer(request, 413, "too_large", _TOO_LARGE)
+        if is_storage_fault(exc):  # e.g. the rate limit's write to a read-only database
+            full = storage_error(exc)
+            return _answer(request, full.status, full.code, full.message, headers=full.headers)
         rid = _request_id(request)
         log.error("request %s %s failed (id %s)", request.method, request.url.path, rid,
                   exc_info=exc)

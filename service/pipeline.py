@@ -15,7 +15,8 @@ import shutil
 import tempfile
 import time
 from collections.abc import Callable, Mapping
-from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures import Future, ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -178,8 +179,7 @@ def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folde
     if "effective_spin" in derived:
         corner_samples["effective_spin"] = derived["effective_spin"]
     corner_args = (corner_samples, folder / PLOT_FILES["corner"])
-    pool = _plot_pool()
-    pending = pool.submit(_corner, *corner_args, labels) if pool is not None else None
+    pending = _submit_corner(*corner_args, labels)
     window = (max(-0.6, float(pd.times[0])), 0.1)
     plots.whitened_plot(
         pd.times,
@@ -220,10 +220,7 @@ def _make_plots(result: AnalysisResult, derived: Mapping[str, np.ndarray], folde
         },
         burn_in=result.chain.burn_in,
     )
-    if pending is not None:
-        pending.result(timeout=300)
-    else:
-        _corner(*corner_args, labels)
+    _finish_corner(pending, *corner_args, labels)
 
 
 def _with_unit(name: str) -> str:
@@ -249,6 +246,39 @@ def _plot_pool() -> ProcessPoolExecutor | None:
             and not mp.current_process().daemon):
         _POOL = ProcessPoolExecutor(1, mp_context=mp.get_context("fork"))
     return _POOL
+
+
+def _submit_corner(samples: Mapping[str, np.ndarray], path: Path,
+                   labels: Mapping[str, str]) -> Future[Path] | None:
+    """The corner plot handed to the helper process; ``None``: draw it in this process."""
+    pool = _plot_pool()
+    if pool is None:
+        return None
+    try:
+        return pool.submit(_corner, samples, path, labels)
+    except BrokenProcessPool:  # the helper died since the last analysis: start another next time
+        _drop_pool()
+        return None
+
+
+def _finish_corner(pending: Future[Path] | None, samples: Mapping[str, np.ndarray], path: Path,
+                   labels: Mapping[str, str]) -> Path:
+    """Wait for the helper's corner plot; draw it here if there is none or the helper died."""
+    if pending is not None:
+        try:
+            return pending.result(timeout=300)
+        except BrokenProcessPool:  # the helper was killed (e.g. out of memory)
+            log.warning("the plot helper process died; drawing the corner plot in-process")
+            _drop_pool()
+    return _corner(samples, path, labels)
+
+
+def _drop_pool() -> None:
+    """Forget a broken helper pool (the next analysis starts a fresh one)."""
+    global _POOL
+    if _POOL is not None:
+        _POOL.shutdown(wait=False, cancel_futures=True)
+    _POOL = None
 
 
 def write_outputs(

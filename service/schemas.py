@@ -217,6 +217,8 @@ ERROR_MEANINGS: dict[int, str] = {
     422: "a parameter, form field or file is invalid; error.field names it",
     429: "too many submissions with this key in the last minute (see Retry-After)",
     503: "the queue is full; retry after Retry-After seconds",
+    507: "the server's data folder is full or not writable (RFC 4918, 11.5); nothing was"
+         " stored; retry after Retry-After seconds",
 }
 
 

@@ -8,6 +8,10 @@ sends a heartbeat every ``heartbeat_seconds`` from a helper thread, writes stage
 and progress at most every 0.5 s, stores the Fisher-matrix first look as soon as
 the analysis hands it over (before sampling), and stops early when the analysis is cancelled
 or its claim is lost. On SIGTERM it puts its analysis back in the queue at the next progress report.
+A data folder that is full or not writable fails the analysis with a clear message
+(:mod:`service.storage_faults`); a database that cannot be reached neither stops the
+analysis (a progress report is skipped) nor the worker (it retries; a job left
+without heartbeat is queued again by the sweep).
 """
 
 from __future__ import annotations
@@ -35,6 +39,7 @@ from .execution import one_thread_env
 from .schemas import api_field
 from .settings import ServiceSettings
 from .storage import NETWORK, Store, open_store
+from .storage_faults import FAILED_MESSAGE, describe, is_storage_fault
 
 if TYPE_CHECKING:
     from .network_pipeline import NetworkRequest
@@ -142,7 +147,13 @@ class _Reporter:
         if stage != self._stage or now - self._last >= PROGRESS_INTERVAL:
             self._stage, self._last = stage, now
             self._shown = max(self._shown, min(total, 0.99))
-            if not jobs.heartbeat(self.store, self.job, stage=stage, progress=self._shown):
+            try:
+                alive = jobs.heartbeat(self.store, self.job, stage=stage, progress=self._shown)
+            except Exception:  # a locked database: carry on; a stale claim is swept later
+                log.warning("progress of %s not recorded; carrying on", self.job.id,
+                            exc_info=True)
+                return
+            if not alive:
                 self.lost.set()
                 raise _Stop
 
@@ -195,7 +206,11 @@ def _run(store: Store, job: jobs.Claim, settings: ServiceSettings) -> None:
     except (SystemExit, KeyboardInterrupt):
         jobs.release(store, job)
         raise
-    except Exception:
+    except Exception as err:
+        if is_storage_fault(err):  # e.g. ENOSPC while writing the output: final, not retried
+            log.error("analysis %s: the data folder is full or not writable (%s)", job.id, err)
+            jobs.fail(store, job, FAILED_MESSAGE.format(reason=describe(err)), None)
+            return
         error_id = uuid.uuid4().hex[:12]
         log.exception("analysis %s: internal error %s", job.id, error_id)
         jobs.fail(
@@ -257,15 +272,19 @@ def worker_main(settings_data: dict[str, Any], stop: Event, parent: int) -> None
     last_sweep = 0.0
     try:
         while not stop.is_set() and not _TERMINATE.is_set() and os.getppid() == parent:
-            if time.monotonic() - last_sweep > settings.heartbeat_seconds:
-                last_sweep = time.monotonic()
-                jobs.requeue_stale(
-                    store,
-                    stale_after=settings.stale_after_seconds,
-                    max_attempts=settings.max_attempts,
-                )
-            if run_one_job(settings, worker=name) is None:
-                stop.wait(0.5)
+            try:
+                if time.monotonic() - last_sweep > settings.heartbeat_seconds:
+                    last_sweep = time.monotonic()
+                    jobs.requeue_stale(
+                        store,
+                        stale_after=settings.stale_after_seconds,
+                        max_attempts=settings.max_attempts,
+                    )
+                if run_one_job(settings, worker=name) is None:
+                    stop.wait(0.5)
+            except Exception:  # the database unavailable: its job goes stale and is swept
+                log.exception("worker %s: the queue could not be served; retrying", name)
+                stop.wait(settings.heartbeat_seconds)
     except SystemExit:
         pass
     finally:

@@ -33,6 +33,7 @@ from ..schemas import (
 )
 from ..security import FILE_POLICY, BodyTooLarge
 from ..storage import FINAL_STATES, Analysis, DuplicateError, Store, hash_secret
+from ..storage_faults import refuse_storage_faults
 from ..uploads import form_layout, save_network, save_single, settings_text
 
 __all__ = ["output_file", "output_names", "public_view", "router"]
@@ -145,7 +146,7 @@ async def _form(request: Request, owner: RateLimitedKeyDep) -> AsyncIterator[For
 
 @router.post("", status_code=202, response_model=Submitted, openapi_extra=SUBMIT_FORM_SCHEMA,
              responses={200: {"model": Submitted, "description": "an idempotent replay"},
-                        **error_responses(400, 401, 413, 422, 429, 503)})
+                        **error_responses(400, 401, 413, 422, 429, 503, 507)})
 def submit(
     store: StoreDep, svc: SettingsDep, owner: RateLimitedKeyDep, response: Response,
     form: Annotated[FormData, Depends(_form)],
@@ -163,7 +164,8 @@ def submit(
     `start_time`, `asd`) applies to every detector. `strain` and `strain.NAME` are not
     mixed, and no field is sent twice. Every file is read before the answer: bad input
     gets 422 with `error.field` naming the field, e.g. `strain.NAME` or `psd.NAME`, and
-    nothing is stored.
+    nothing is stored. A data folder that is full or not writable gets 507 with
+    `Retry-After`, and nothing is kept.
     """
     settings = settings_text(form)
     layout = form_layout(form)
@@ -175,30 +177,34 @@ def submit(
     if counts["queued"] >= svc.max_queue:
         raise ApiError(503, "queue_full", f"{counts['queued']} analyses are waiting, the most"
                        " this server queues; retry later", headers={"Retry-After": "30"})
-    scratch = store.scratch_dir()
-    try:
-        if layout.network:
-            request, inputs, label = save_network(scratch, spec, svc, layout)
-        else:
-            request, inputs, label = save_single(scratch, spec, svc, layout.detectors[0])
-        analysis_id = secrets.token_hex(16)
-        folder = store.analysis_dir(analysis_id)
-        folder.mkdir(parents=True)
-        scratch.rename(folder / "inputs")
-    finally:
-        shutil.rmtree(scratch, ignore_errors=True)
-    token = store.share_token(analysis_id, 0)
-    try:
-        store.insert_analysis(analysis_id=analysis_id, label=label, request=request,
-                              inputs=inputs, owner=owner, idempotency_key=idempotency_key,
-                              share_hash=hash_secret(token))
-    except DuplicateError:  # a concurrent retry with the same key won
-        shutil.rmtree(folder, ignore_errors=True)
-        old = store.by_idempotency_key(owner, idempotency_key or "")
-        if old is None:
-            raise
-        response.status_code = 200
-        return _submitted(store, old)
+    with refuse_storage_faults():  # a full or read-only data folder: 507, nothing kept
+        scratch = store.scratch_dir()
+        try:
+            if layout.network:
+                request, inputs, label = save_network(scratch, spec, svc, layout)
+            else:
+                request, inputs, label = save_single(scratch, spec, svc, layout.detectors[0])
+            analysis_id = secrets.token_hex(16)
+            folder = store.analysis_dir(analysis_id)
+            folder.mkdir(parents=True)
+            try:
+                scratch.rename(folder / "inputs")
+                token = store.share_token(analysis_id, 0)
+                store.insert_analysis(analysis_id=analysis_id, label=label, request=request,
+                                      inputs=inputs, owner=owner,
+                                      idempotency_key=idempotency_key,
+                                      share_hash=hash_secret(token))
+            except BaseException:
+                shutil.rmtree(folder, ignore_errors=True)
+                raise
+        except DuplicateError:  # a concurrent retry with the same key won
+            old = store.by_idempotency_key(owner, idempotency_key or "")
+            if old is None:
+                raise
+            response.status_code = 200
+            return _submitted(store, old)
+        finally:
+            shutil.rmtree(scratch, ignore_errors=True)
     return Submitted(id=analysis_id, state="queued", status_url=f"/api/v1/analyses/{analysis_id}",
                      report_url=f"/r/{token}", share_token=token)
 

@@ -180,8 +180,12 @@ def _killer(server: _Server, kills: int, seed: int, gap: tuple[float, float],
             report.kills["server_and_workers"] += 1
 
 
-def _final_states(server: _Server, ids: set[str], deadline: float) -> dict[str, str]:
-    """Poll every id until all are final or the deadline passes; id -> last state."""
+def _final_states(server: _Server, ids: set[str], deadline: float,
+                  errors: dict[str, str]) -> dict[str, str]:
+    """Poll every id until all are final or the deadline passes; id -> last state.
+
+    ``errors`` receives the message of every analysis that ended ``failed``.
+    """
     states: dict[str, str] = {}
     with httpx.Client(base_url=server.url(), timeout=30.0) as client:
         for _ in range(math.ceil(max(deadline - time.monotonic(), 0.0) / 0.5) + 1):
@@ -189,6 +193,8 @@ def _final_states(server: _Server, ids: set[str], deadline: float) -> dict[str, 
                 r = client.get(f"/api/v1/analyses/{analysis_id}")
                 ok = r.status_code == 200
                 states[analysis_id] = r.json()["state"] if ok else f"answer {r.status_code}"
+                if ok and r.json().get("error"):
+                    errors[analysis_id] = str(r.json()["error"])
             if all(states.get(i) in FINAL for i in ids) or time.monotonic() > deadline:
                 break
             time.sleep(0.5)
@@ -227,16 +233,17 @@ def _check_database(db_path: Path, keys: set[str], report: LoadKillReport) -> No
 def run_load_kill(
     root: Path, *, submissions: int, kills: int, seed: int, workers: int = 2,
     concurrency: int = 8, repeat_every: int = 5, heavy_every: int = 4,
-    kill_gap: tuple[float, float] = (1.0, 6.0), load_timeout: float = 600.0,
-    drain_timeout: float = 900.0,
+    kill_gap: tuple[float, float] = (1.0, 6.0), pace: float = 0.0,
+    load_timeout: float = 600.0, drain_timeout: float = 900.0,
 ) -> LoadKillReport:
     """Submit, kill and restart, drain, then check (see the module docstring).
 
     Submission ``i`` uses the Idempotency-Key of submission ``i - 1`` when
     ``i % repeat_every == repeat_every - 1`` (a retry by the client), and the heavier
-    settings when ``i % heavy_every == heavy_every - 1``. The killer waits a seeded
-    uniform ``kill_gap`` between kills; the load phase ends when every submission is
-    answered and every kill done.
+    settings when ``i % heavy_every == heavy_every - 1``. Submission ``i`` starts no
+    earlier than ``i * pace`` s after the first, so that kills also land while uploads
+    are in flight. The killer waits a seeded uniform ``kill_gap`` between kills; the load
+    phase ends when every submission is answered and every kill done.
     """
     keys = [f"load-{i}" for i in range(submissions)]
     for i in range(submissions):
@@ -249,6 +256,7 @@ def run_load_kill(
     answers: list[tuple[str, str, int]] = []
     lock = threading.Lock()
     stop = threading.Event()
+    errors: dict[str, str] = {}
     clock = time.monotonic()
     deadline = clock + load_timeout
     try:
@@ -259,7 +267,8 @@ def run_load_kill(
         threads: list[threading.Thread] = []
         while pending or threads:
             threads = [t for t in threads if t.is_alive()]
-            while pending and len(threads) < concurrency:
+            while (pending and len(threads) < concurrency
+                   and time.monotonic() >= clock + pending[0] * pace):
                 i = pending.pop(0)
                 t = threading.Thread(target=_submit, args=(server, keys[i], i % heavy_every ==
                                      heavy_every - 1, deadline, answers, report, lock),
@@ -282,7 +291,7 @@ def run_load_kill(
                 report.problems.append(f"key {key} answered with {len(ids)} different ids")
         ids = {i for found in by_key.values() for i in found}
         drain_start = time.monotonic()
-        states = _final_states(server, ids, drain_start + drain_timeout)
+        states = _final_states(server, ids, drain_start + drain_timeout, errors)
         report.drain_s = time.monotonic() - drain_start
     finally:
         stop.set()
@@ -294,7 +303,8 @@ def run_load_kill(
     # With room for eight attempts every analysis of the demo should finish.
     for analysis_id in sorted(ids):
         if states.get(analysis_id) in FINAL - {"done"}:
-            report.problems.append(f"analysis {analysis_id} ended {states[analysis_id]}")
+            report.problems.append(f"analysis {analysis_id} ended {states[analysis_id]}:"
+                                   f" {errors.get(analysis_id, 'no message')}")
     _check_folders(data_dir, states, report)
     _check_database(data_dir / "chirpcast.sqlite3", set(keys), report)
     return report

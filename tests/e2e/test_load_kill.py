@@ -21,7 +21,8 @@ from .loadkill import run_load_kill
 def test_submissions_survive_kills_exactly_once(tmp_path: Path) -> None:
     report = run_load_kill(tmp_path, submissions=10, kills=3, seed=3, workers=2,
                            concurrency=4, repeat_every=5, heavy_every=5,
-                           kill_gap=(2.0, 6.0), load_timeout=240.0, drain_timeout=300.0)
+                           kill_gap=(2.0, 6.0), pace=1.0, load_timeout=240.0,
+                           drain_timeout=300.0)
     figures = report.to_dict()
     assert report.problems == [], figures
     assert sum(report.kills.values()) == 3, figures

@@ -1,0 +1,58 @@
+"""The report's plot helper process may die (killed, out of memory) without failing the analysis.
+
+Found by the load-and-kill run (``benchmarks/load_kill.py``): a SIGKILL that hit a worker's
+plot helper instead of the worker failed that analysis; now the corner plot is drawn in the
+worker itself and the next analysis starts a fresh helper. The PNG signature is from the
+PNG specification (W3C/ISO 15948, section 5.2).
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from service import pipeline
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+LABELS = {"chirp_mass": "Mc", "mass_ratio": "q"}
+
+
+def _samples() -> dict[str, np.ndarray]:
+    rng = np.random.default_rng(5)
+    return {"chirp_mass": 24.0 + 0.3 * rng.standard_normal(2000),
+            "mass_ratio": np.clip(0.8 + 0.1 * rng.standard_normal(2000), 0.1, 1.0)}
+
+
+def _kill_helper() -> None:
+    pool = pipeline._plot_pool()
+    if pool is None:
+        pytest.skip("no plot helper process on this platform (one core or no fork)")
+    pool.submit(int, 0).result(timeout=60)  # the helper process exists
+    pids = list(pool._processes)  # the pool's worker pids (one)
+    assert pids
+    for pid in pids:
+        os.kill(pid, signal.SIGKILL)
+    for _ in range(100):  # at most ~5 s for the pool to notice
+        if all(not p.is_alive() for p in pool._processes.values()) or not pool._processes:
+            break
+        time.sleep(0.05)
+
+
+def test_corner_plot_is_drawn_when_the_helper_dies(tmp_path: Path) -> None:
+    samples = _samples()
+    _kill_helper()
+    out = tmp_path / "corner.png"
+    pending = pipeline._submit_corner(samples, out, LABELS)
+    assert pipeline._finish_corner(pending, samples, out, LABELS) == out
+    assert out.read_bytes()[:8] == PNG_SIGNATURE
+    # The broken helper was dropped: the next plot goes to a fresh, working one.
+    again = tmp_path / "again.png"
+    fresh = pipeline._submit_corner(samples, again, LABELS)
+    assert fresh is not None
+    assert pipeline._finish_corner(fresh, samples, again, LABELS) == again
+    assert again.read_bytes()[:8] == PNG_SIGNATURE
