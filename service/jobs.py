@@ -198,13 +198,29 @@ def requeue_stale(
     """Requeue running jobs whose heartbeat is older than ``stale_after`` seconds.
 
     With ``everything=True`` (the server has just started and owns the data folder
-    and its SQLite file) every running job is taken as orphaned; never pass it for a
-    database that other servers share. A job that has already used ``max_attempts``
-    claims fails instead, so an input that kills its worker cannot loop forever.
-    Returns the number of jobs requeued or failed.
+    and its SQLite file) every running job is taken as orphaned and requeued, and the
+    attempt it was on is given back: the whole server died, which is not the job's
+    doing (found by the load-and-kill run, where the oldest jobs, always the ones
+    running, used up their attempts in a storm of server kills). Never pass it for a
+    database that other servers share. Otherwise a silent job that has already used
+    ``max_attempts`` claims fails instead, so an input that kills its worker cannot
+    loop forever. Returns the number of jobs requeued or failed.
     """
     now = time.time()
-    cutoff = now + 1.0 if everything else now - stale_after
+    if everything:
+        with store.connect() as db:
+            orphans = db.execute(
+                "UPDATE analyses SET state = 'queued', stage = 'queued', progress = 0,"
+                " preview = NULL, worker = NULL, updated = ?,"
+                " attempts = CASE WHEN attempts > 0 THEN attempts - 1 ELSE 0 END"
+                " WHERE state = 'running' RETURNING id",
+                (now,),
+            ).fetchall()
+        for row in orphans:
+            log.warning("analysis %s: left running by a server that stopped; queued again",
+                        row[0])
+        return len(orphans)
+    cutoff = now - stale_after
     stale = ("SELECT id FROM analyses WHERE state = 'running' AND heartbeat < ?"
              " AND attempts {} ?" + store.engine.skip_locked)
     with store.transaction() as db:

@@ -128,6 +128,18 @@ def test_startup_requeues_everything_running(store: Store) -> None:
     assert store.counts()["queued"] == 1
 
 
+def test_server_deaths_do_not_use_up_a_jobs_attempts(store: Store) -> None:
+    """A job orphaned by a whole server dying is requeued with its attempt given back,
+    however often that happens; a job whose own worker keeps going silent still fails."""
+    _queue(store, "s")
+    for _ in range(5):
+        assert jobs.claim(store, "w") is not None
+        assert jobs.requeue_stale(store, stale_after=15, max_attempts=2, everything=True) == 1
+    row = store.get("s")
+    assert row is not None
+    assert (row.state, row.attempts) == ("queued", 0)
+
+
 def test_job_that_keeps_killing_workers_fails(store: Store) -> None:
     _queue(store, "z")
     for _ in range(2):
