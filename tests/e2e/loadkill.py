@@ -103,9 +103,15 @@ class _Server:
             return self.handle.base_url
 
     def kill_all_and_restart(self) -> None:
+        """Kill the tree; while the next server starts, submitters meet a closed port."""
         with self.lock:
             self.handle.kill()
-            self.handle = self._start()
+            self.generation += 1
+            generation = self.generation
+        fresh = start_server(self.data_dir, self.logs / f"server-{generation}.log",
+                             workers=self.workers, env=ENV)
+        with self.lock:
+            self.handle = fresh
 
     def kill_one_worker(self, rng: np.random.Generator) -> bool:
         with self.lock:
