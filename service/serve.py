@@ -68,10 +68,11 @@ def take_over(settings: ServiceSettings, store: Store) -> IO[str] | None:
     """Start-up housekeeping; return the data folder's lock to hold (``None``: shared).
 
     SQLite: this server owns the data folder: lock it, delete every partial upload and
-    requeue every analysis left running by an earlier server that died. PostgreSQL:
-    other servers may use the same database and folder right now: take no lock, delete
-    only partial uploads older than :data:`STALE_UPLOAD_SECONDS` and requeue only
-    analyses whose heartbeat went stale.
+    every analysis folder without a row, and requeue every analysis left running by an
+    earlier server that died. PostgreSQL: other servers may use the same database and
+    folder right now: take no lock, delete only partial uploads and row-less folders
+    older than :data:`STALE_UPLOAD_SECONDS` and requeue only analyses whose heartbeat
+    went stale.
     """
     shared = store.engine.shared
     lock = None if shared else lock_data_dir(settings.data_dir)
@@ -84,6 +85,7 @@ def take_over(settings: ServiceSettings, store: Store) -> IO[str] | None:
                 continue
             if stale:
                 shutil.rmtree(partial, ignore_errors=True)
+        _remove_uncommitted(store, cutoff)
         orphans = jobs.requeue_stale(
             store, stale_after=settings.stale_after_seconds,
             max_attempts=settings.max_attempts, everything=not shared,
@@ -95,6 +97,29 @@ def take_over(settings: ServiceSettings, store: Store) -> IO[str] | None:
     if orphans:
         log.warning("%d analyses left running by a server that stopped: queued again", orphans)
     return lock
+
+
+def _remove_uncommitted(store: Store, cutoff: float) -> int:
+    """Delete analysis folders without a database row, last changed before ``cutoff``.
+
+    A submission moves its checked upload into ``analyses/<id>/`` and then inserts the
+    row; a server killed between the two leaves a folder no analysis owns (found by the
+    load-and-kill run). The client's retry with its Idempotency-Key makes a new analysis,
+    so the folder is garbage. Returns the number removed.
+    """
+    removed = 0
+    for folder in (store.data_dir / "analyses").iterdir():
+        try:
+            old = folder.stat().st_mtime < cutoff
+        except FileNotFoundError:
+            continue
+        if old and store.get(folder.name) is None:
+            shutil.rmtree(folder, ignore_errors=True)
+            removed += 1
+    if removed:
+        log.warning("%d analysis folders without a database row (uploads cut off by a kill):"
+                    " removed", removed)
+    return removed
 
 
 def _note_signal(signum: int, frame: object) -> None:

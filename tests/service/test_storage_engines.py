@@ -11,6 +11,7 @@ from RFC 6585, section 4, and RFC 9110, section 10.2.3.
 from __future__ import annotations
 
 import multiprocessing
+import os
 import re
 import threading
 import time
@@ -150,6 +151,31 @@ def test_start_up_requeues_by_engine(tmp_path: Path, store: Store,
         else:  # shared: job001 may belong to another live server
             assert lock is None
             assert states == {"job000": "queued", "job001": "running"}
+    finally:
+        if lock is not None:
+            lock.close()
+
+
+def test_start_up_removes_folders_no_row_owns(tmp_path: Path, store: Store,
+                                              database_url: str | None) -> None:
+    """A server killed between moving an upload into place and inserting its row leaves
+    a folder no analysis owns (seen in the load-and-kill run); the next start removes it
+    (with a shared database only once it is older than an upload could be in flight)."""
+    settings = _settings(tmp_path, database_url)
+    _fill(store, 1)
+    owned = store.analysis_dir("job000")
+    (owned / "inputs").mkdir(parents=True)
+    fresh, old = store.analysis_dir("uncommitted-new"), store.analysis_dir("uncommitted-old")
+    for folder in (fresh, old):
+        (folder / "inputs").mkdir(parents=True)
+        (folder / "inputs" / "strain.csv").write_text("1\n", encoding="utf-8")
+    hours_ago = time.time() - 2 * 3600
+    os.utime(old, (hours_ago, hours_ago))
+    lock = take_over(settings, store)
+    try:
+        assert owned.is_dir()
+        assert not old.exists()
+        assert fresh.exists() == (database_url is not None)  # shared: maybe in flight
     finally:
         if lock is not None:
             lock.close()
