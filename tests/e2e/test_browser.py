@@ -34,10 +34,9 @@ from service.app import create_app
 from service.routes import pages
 from service.settings import ServiceSettings
 
+from .conftest import NEEDS_CHROMIUM
 from .serving import REPO_ROOT, start_server
 
-CHROMIUM = Path("/usr/bin/chromium")
-ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking"]
 CAUTION = "Automated, preliminary estimate"
 DEMO = REPO_ROOT / "demo_data"
 TRIGGER = "2000000012.004"  # demo_data/event.json
@@ -52,19 +51,8 @@ FAILURE = "p.txt line 9: frequency 12.0 Hz is not above 12.5 Hz; sort the rows b
 
 pytestmark = [
     pytest.mark.slow,
-    pytest.mark.skipif(not CHROMIUM.exists(), reason="needs Debian's chromium at /usr/bin/chromium"
-                       " (apt-get install chromium chromium-driver; .ci/run does this)"),
+    NEEDS_CHROMIUM,
 ]
-
-
-@pytest.fixture(scope="module")
-def browser() -> Iterator[Any]:
-    from playwright.sync_api import sync_playwright
-
-    with sync_playwright() as playwright:
-        chromium = playwright.chromium.launch(executable_path=str(CHROMIUM), args=ARGS)
-        yield chromium
-        chromium.close()
 
 
 @pytest.fixture

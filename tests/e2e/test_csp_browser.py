@@ -17,7 +17,6 @@ import socket
 import threading
 import time
 from collections.abc import Iterator
-from pathlib import Path
 from typing import Any
 
 import pytest
@@ -27,10 +26,9 @@ from service.settings import ServiceSettings
 from service.storage import Store
 
 from ..service.test_security import finished_share
+from .conftest import NEEDS_CHROMIUM
 from .serving import REPO_ROOT
 
-CHROMIUM = Path("/usr/bin/chromium")
-ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking"]
 DEMO = REPO_ROOT / "demo_data"
 TRIGGER = "2000000012.004"  # demo_data/event.json
 #: Runs before every page script: keeps each CSP violation the page reports.
@@ -43,8 +41,7 @@ document.addEventListener("securitypolicyviolation", function (e) {
 
 pytestmark = [
     pytest.mark.slow,
-    pytest.mark.skipif(not CHROMIUM.exists(), reason="needs Debian's chromium at /usr/bin/chromium"
-                       " (apt-get install chromium chromium-driver; .ci/run does this)"),
+    NEEDS_CHROMIUM,
 ]
 
 
@@ -72,16 +69,6 @@ def served(tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[str, str]
     yield f"http://127.0.0.1:{port}", token
     server.should_exit = True
     thread.join(timeout=10)
-
-
-@pytest.fixture(scope="module")
-def browser() -> Iterator[Any]:
-    from playwright.sync_api import sync_playwright
-
-    with sync_playwright() as playwright:
-        chromium = playwright.chromium.launch(executable_path=str(CHROMIUM), args=ARGS)
-        yield chromium
-        chromium.close()
 
 
 @pytest.fixture
