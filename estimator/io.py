@@ -232,7 +232,15 @@ def read_strain(
     if not 0.0 < jitter_tolerance < 0.5:
         _fail(f"jitter tolerance {jitter_tolerance} is outside (0, 0.5) step", name, "strain")
     raw = _read_bytes(p, "strain")
-    if raw.startswith((b"\x93NUMPY", b"PK\x03\x04")):
+    numpy_file = raw.startswith((b"\x93NUMPY", b"PK\x03\x04"))
+    if not numpy_file and p.suffix.lower() in {".npy", ".npz"}:
+        # The NumPy format's magic string and the zip local-header signature (PKWARE
+        # APPNOTE 4.3.7) open every .npy and .npz file.
+        kind = "NumPy array (.npy)" if p.suffix.lower() == ".npy" else "NumPy archive (.npz)"
+        _fail(f"named like a {kind} but does not start like one; the file is damaged or in"
+              " another format: write it with numpy.save / numpy.savez, or send a text table",
+              name, "strain")
+    if numpy_file:
         strain, grid = _load_numpy(raw, name)
         what = "a .npy strain array"
     else:

@@ -242,6 +242,11 @@ def test_bad_numpy_files(tmp_path: Path) -> None:
     assert "cannot read the NumPy data" in str(_error(tmp_path / "obj.npy"))
     (tmp_path / "junk.bin").write_bytes(b"\x00\x01\x02binary")
     assert "looks binary" in str(_error(tmp_path / "junk.bin"))
+    # Named .npz/.npy without their opening bytes (the zip signature, PKWARE APPNOTE
+    # 4.3.7; the NumPy format's magic string): said so, not "looks binary".
+    for bad in ("junk.npz", "junk.npy"):
+        (tmp_path / bad).write_bytes(b"garbage\x00\x01\x02")
+        assert "does not start like one" in str(_error(tmp_path / bad))
 
 
 def test_fewer_than_two_samples(tmp_path: Path) -> None:
