@@ -1,8 +1,9 @@
 """The report's plot helper process may die (killed, out of memory) without failing the analysis.
 
-Found by the load-and-kill run (``benchmarks/load_kill.py``): a SIGKILL that hit a worker's
-plot helper instead of the worker failed that analysis; now the corner plot is drawn in the
-worker itself and the next analysis starts a fresh helper. The PNG signature is from the
+Found while reading the load-and-kill harness (``benchmarks/load_kill.py``), whose killer
+may hit a worker's plot helper rather than the worker: the helper's death used to fail the
+analysis (BrokenProcessPool); now the corner plot is drawn in the worker itself and the next
+analysis starts a fresh helper. The PNG signature is from the
 PNG specification (W3C/ISO 15948, section 5.2).
 """
 
