@@ -6,13 +6,16 @@ No test downloads a browser: ``.ci/run`` installs Debian's ``chromium`` and
 
 from __future__ import annotations
 
+import socket
+import threading
+import time
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 import pytest
 
-__all__ = ["ARGS", "CHROMIUM", "NEEDS_CHROMIUM", "browser"]
+__all__ = ["ARGS", "CHROMIUM", "NEEDS_CHROMIUM", "browser", "serve_in_thread"]
 
 CHROMIUM = Path("/usr/bin/chromium")
 ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking"]
@@ -30,3 +33,28 @@ def browser() -> Iterator[Any]:
         chromium = playwright.chromium.launch(executable_path=str(CHROMIUM), args=ARGS)
         yield chromium
         chromium.close()
+
+
+def serve_in_thread(app: Any) -> Iterator[str]:
+    """Run ``app`` with uvicorn on a free loopback port in a thread; yield its base URL.
+
+    Waits at most 10 s for the server to start (fails the test otherwise) and stops it
+    after the one yield.
+    """
+    import uvicorn
+
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        port = sock.getsockname()[1]
+    server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning"))
+    thread = threading.Thread(target=server.run, daemon=True)
+    thread.start()
+    for _ in range(200):
+        if server.started:
+            break
+        time.sleep(0.05)
+    if not server.started:
+        pytest.fail("uvicorn did not start within 10 s")
+    yield f"http://127.0.0.1:{port}"
+    server.should_exit = True
+    thread.join(timeout=10)

@@ -19,8 +19,6 @@ from __future__ import annotations
 
 import json
 import shutil
-import socket
-import threading
 import time
 from collections.abc import Iterator
 from pathlib import Path
@@ -34,7 +32,7 @@ from service.app import create_app
 from service.routes import pages
 from service.settings import ServiceSettings
 
-from .conftest import NEEDS_CHROMIUM
+from .conftest import NEEDS_CHROMIUM, serve_in_thread
 from .serving import REPO_ROOT, start_server
 
 CAUTION = "Automated, preliminary estimate"
@@ -257,22 +255,8 @@ def _stub_app() -> Any:
 
 
 def _serve(app: Any) -> Iterator[str]:
-    """Run ``app`` with uvicorn on a free loopback port in a thread; yield its base URL."""
-    import uvicorn
-
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        port = sock.getsockname()[1]
-    server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning"))
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    for _ in range(100):
-        if server.started:
-            break
-        time.sleep(0.05)
-    yield f"http://127.0.0.1:{port}"
-    server.should_exit = True
-    thread.join(timeout=10)
+    """The app under uvicorn on a loopback port (see ``conftest.serve_in_thread``)."""
+    yield from serve_in_thread(app)
 
 
 @pytest.fixture(scope="module")

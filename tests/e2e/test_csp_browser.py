@@ -13,8 +13,6 @@ Skipped only when /usr/bin/chromium is absent (.ci/run installs it). Every wait 
 
 from __future__ import annotations
 
-import socket
-import threading
 import time
 from collections.abc import Iterator
 from typing import Any
@@ -26,7 +24,7 @@ from service.settings import ServiceSettings
 from service.storage import Store
 
 from ..service.test_security import finished_share
-from .conftest import NEEDS_CHROMIUM
+from .conftest import NEEDS_CHROMIUM, serve_in_thread
 from .serving import REPO_ROOT
 
 DEMO = REPO_ROOT / "demo_data"
@@ -48,27 +46,12 @@ pytestmark = [
 @pytest.fixture(scope="module")
 def served(tmp_path_factory: pytest.TempPathFactory) -> Iterator[tuple[str, str]]:
     """(base URL, share token of a finished analysis) of the app under uvicorn."""
-    import uvicorn
-
     root = tmp_path_factory.mktemp("csp")
     svc = ServiceSettings(data_dir=root / "data", workers=1, events_timeout_seconds=3.0)
     app = create_app(svc)
     _, token = finished_share(Store(svc.data_dir), root / "attempt")
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        port = sock.getsockname()[1]
-    server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=port, log_level="warning"))
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    for _ in range(200):
-        if server.started:
-            break
-        time.sleep(0.05)
-    if not server.started:
-        pytest.fail("uvicorn did not start within 10 s")
-    yield f"http://127.0.0.1:{port}", token
-    server.should_exit = True
-    thread.join(timeout=10)
+    for base in serve_in_thread(app):
+        yield base, token
 
 
 @pytest.fixture
