@@ -12,47 +12,11 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
+from .store_schema import schema
+
 __all__ = ["SqliteEngine"]
 
-_SCHEMA = """
-CREATE TABLE IF NOT EXISTS analyses (
-    id TEXT PRIMARY KEY,
-    state TEXT NOT NULL DEFAULT 'queued',
-    stage TEXT NOT NULL DEFAULT 'queued',
-    progress REAL NOT NULL DEFAULT 0,
-    error_message TEXT,
-    error_field TEXT,
-    label TEXT NOT NULL DEFAULT '',
-    request TEXT NOT NULL,
-    inputs TEXT NOT NULL,
-    owner TEXT NOT NULL DEFAULT '',
-    idempotency_key TEXT,
-    share_hash TEXT UNIQUE,
-    share_generation INTEGER NOT NULL DEFAULT 0,
-    worker TEXT,
-    attempts INTEGER NOT NULL DEFAULT 0,
-    heartbeat REAL,
-    created REAL NOT NULL,
-    updated REAL NOT NULL,
-    preview TEXT
-);
-CREATE INDEX IF NOT EXISTS analyses_state ON analyses (state, created);
-CREATE UNIQUE INDEX IF NOT EXISTS analyses_idempotency
-    ON analyses (owner, idempotency_key) WHERE idempotency_key IS NOT NULL;
-CREATE TABLE IF NOT EXISTS api_keys (
-    id INTEGER PRIMARY KEY AUTOINCREMENT,
-    name TEXT NOT NULL,
-    key_hash TEXT NOT NULL UNIQUE,
-    created REAL NOT NULL,
-    revoked REAL
-);
-CREATE TABLE IF NOT EXISTS rate_limits (
-    bucket TEXT PRIMARY KEY,
-    events TEXT NOT NULL,
-    touched REAL NOT NULL
-);
-CREATE INDEX IF NOT EXISTS rate_limits_touched ON rate_limits (touched);
-"""
+_SCHEMA = ";\n".join(schema(real="REAL", key_id="INTEGER PRIMARY KEY AUTOINCREMENT")) + ";"
 #: Columns added after the first release: (table, name, SQL type), added to older files
 #: when opened.
 _ADDED_COLUMNS = (("analyses", "preview", "TEXT"), ("api_keys", "revoked", "REAL"))
