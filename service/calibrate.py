@@ -20,7 +20,7 @@ import json
 import multiprocessing
 import os
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Collection
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import asdict, dataclass
 from pathlib import Path
@@ -30,6 +30,7 @@ import numpy as np
 
 from estimator.analysis import AnalysisSettings, analysis_prior, run_analysis
 from estimator.calibration import credible_level, summarize_levels
+from estimator.errors import InputError
 from estimator.priors import InspiralPrior
 from estimator.search import search_chirp_mass
 from estimator.simulate import Injection, design_spectrum, simulate_segment
@@ -197,23 +198,98 @@ def run_in_processes(
     *,
     workers: int | None = None,
     progress: Callable[[int, int], None] | None = None,
+    skip: Collection[int] = (),
+    on_row: Callable[[dict[str, Any]], None] | None = None,
 ) -> list[dict[str, Any]]:
-    """``function(setup, i)`` for ``i < count`` in ``workers`` processes, sorted by index.
+    """``function(setup, i)`` for ``i < count`` not in ``skip``, in ``workers`` processes.
 
-    Each row must carry its ``index``; the processes keep to one thread each.
+    Rows come back sorted by index; each must carry its ``index``. ``on_row`` sees each
+    row as it finishes (to keep it safe before the others end); the processes keep to
+    one thread each.
     """
     workers = max(1, workers or os.cpu_count() or 1)
+    todo = [i for i in range(count) if i not in set(skip)]
     rows: list[dict[str, Any]] = []
+    if not todo:
+        return rows
     context = multiprocessing.get_context("spawn")
     # one thread each, from the environment the pool's processes inherit
     with one_thread_env(), ProcessPoolExecutor(workers, mp_context=context) as pool:
-        futures = [pool.submit(function, setup, i) for i in range(count)]
+        futures = [pool.submit(function, setup, i) for i in todo]
         for done, future in enumerate(as_completed(futures), start=1):
             rows.append(future.result())
+            if on_row is not None:
+                on_row(rows[-1])
             if progress is not None:
-                progress(done, count)
+                progress(done, len(todo))
     rows.sort(key=lambda r: int(r["index"]))
     return rows
+
+
+def _plain(value: Any) -> Any:
+    """NumPy scalars as the Python values JSON knows."""
+    if isinstance(value, np.generic):
+        return value.item()
+    raise TypeError(f"{type(value).__name__} is not JSON-ready")
+
+
+class Journal:
+    """Finished injections of a calibration run, one JSON line each, kept as they finish.
+
+    A run stopped part-way (a closed laptop, a killed job, a session's end) loses only
+    the injections still running: run the same command again and the journal's rows are
+    kept, the rest run. The first line records the setup; a journal written for another
+    setup is refused rather than mixed in.
+    """
+
+    NAME = "runs.partial.jsonl"
+
+    def __init__(self, out_dir: Path, setup: CalibrationSetup) -> None:
+        self.path = out_dir / self.NAME
+        self.header = {"setup": asdict(setup)}
+        self.rows: list[dict[str, Any]] = []
+        if self.path.exists():
+            self._load()
+
+    def _load(self) -> None:
+        lines = self.path.read_text(encoding="utf-8").splitlines()
+        try:
+            header = json.loads(lines[0]) if lines else None
+        except json.JSONDecodeError:
+            header = None
+        if json.loads(json.dumps(self.header)) != header:
+            msg = (
+                f"{self.path} holds a partial run with other settings (seed, --n, "
+                "--spin-max or threshold); give another --out, or delete that file "
+                "to start again"
+            )
+            raise InputError(msg, field="out")
+        for line in lines[1:]:
+            try:
+                self.rows.append(json.loads(line))
+            except json.JSONDecodeError:
+                break  # a line cut short by the stop: that injection runs again
+
+    @property
+    def done(self) -> set[int]:
+        """Indices already finished."""
+        return {int(r["index"]) for r in self.rows}
+
+    def add(self, row: dict[str, Any]) -> None:
+        """Append one finished row and push it to disk before going on."""
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        fresh = not self.path.exists() or self.path.stat().st_size == 0
+        with self.path.open("a", encoding="utf-8") as fh:
+            if fresh:
+                fh.write(json.dumps(self.header) + "\n")
+            fh.write(json.dumps(row, default=_plain) + "\n")
+            fh.flush()
+            os.fsync(fh.fileno())
+        self.rows.append(row)
+
+    def remove(self) -> None:
+        """Drop the journal once the run's files are written."""
+        self.path.unlink(missing_ok=True)
 
 
 def run_calibration(
@@ -232,17 +308,29 @@ def run_calibration(
     from estimator.pp_plot import pp_plot  # matplotlib only when the plot is drawn
 
     clock = time.perf_counter()
+    journal = Journal(out_dir, setup)
+    kept = list(journal.rows)
+    step: Callable[[int, int], None] | None = None
+    if progress is not None:
+        report = progress
+        report(len(kept), setup.injections)
+
+        def step(done: int, _total: int) -> None:
+            report(len(kept) + done, setup.injections)
     if scheduler:
         from .dask_engine import map_on_cluster
 
         rows, workers = map_on_cluster(
-            run_injection, setup, setup.injections, scheduler=scheduler, progress=progress
+            run_injection, setup, setup.injections, scheduler=scheduler, progress=step,
+            skip=journal.done, on_row=journal.add,
         )
     else:
         workers = max(1, workers or os.cpu_count() or 1)
         rows = run_in_processes(
-            run_injection, setup, setup.injections, workers=workers, progress=progress
+            run_injection, setup, setup.injections, workers=workers, progress=step,
+            skip=journal.done, on_row=journal.add,
         )
+    rows = sorted(kept + rows, key=lambda r: int(r["index"]))
     wall = time.perf_counter() - clock
     tested = [k for k in TESTED if f"{k}_level" in rows[0]]
     summary = summarize_levels({k: [r[f"{k}_level"] for r in rows] for k in tested})
@@ -276,4 +364,5 @@ def run_calibration(
         "median_wall_per_injection_s": float(np.median([r["wall_s"] for r in rows])),
     }
     (out_dir / "calibration.json").write_text(json.dumps(document, indent=2) + "\n", "utf-8")
+    journal.remove()
     return document

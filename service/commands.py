@@ -196,7 +196,7 @@ def _run_calibrate(args: argparse.Namespace) -> int:
     try:
         doc = run_calibration(
             setup, args.out, workers=args.workers, scheduler=args.scheduler,
-            progress=lambda *_: bar and bar.update(1),
+            progress=lambda done, _total: bar and bar.update(done - bar.n),
         )
     finally:
         if bar is not None:

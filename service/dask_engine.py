@@ -23,7 +23,7 @@ import socket
 import threading
 import time
 import uuid
-from collections.abc import Callable
+from collections.abc import Callable, Collection
 from typing import Any
 
 from estimator.errors import InputError
@@ -238,25 +238,32 @@ def map_on_cluster(
     scheduler: str,
     timeout: float = CONNECT_TIMEOUT,
     progress: Callable[[int, int], None] | None = None,
+    skip: Collection[int] = (),
+    on_row: Callable[[dict[str, Any]], None] | None = None,
 ) -> tuple[list[dict[str, Any]], int]:
-    """``function(setup, i)`` for ``i < count`` on the cluster: rows sorted by index, threads.
+    """``function(setup, i)`` for ``i < count`` not in ``skip`` on the cluster.
 
-    Like :func:`service.calibrate.run_in_processes`, each row carries its ``index``;
-    the first task that raises stops the run (the rest are cancelled) with its error.
+    Returns the rows sorted by index and the cluster's threads. Like
+    :func:`service.calibrate.run_in_processes`, each row carries its ``index`` and
+    ``on_row`` sees each as it finishes; the first task that raises stops the run (the
+    rest are cancelled) with its error.
     """
+    todo = [i for i in range(count) if i not in set(skip)]
     client = connect(scheduler, timeout=timeout)
     try:
         threads = int(sum(client.nthreads().values()))
         token = uuid.uuid4().hex[:8]
-        futures = client.map(function, [setup] * count, range(count), pure=False,
-                             key=[f"chirpcast-injection-{token}-{i}" for i in range(count)])
+        futures = client.map(function, [setup] * len(todo), todo, pure=False,
+                             key=[f"chirpcast-injection-{token}-{i}" for i in todo])
         rows: list[dict[str, Any]] = []
         try:
             finished = _distributed().as_completed(futures, loop=client.loop)
             for done, future in enumerate(finished, start=1):
                 rows.append(future.result())
+                if on_row is not None:
+                    on_row(rows[-1])
                 if progress is not None:
-                    progress(done, count)
+                    progress(done, len(todo))
         finally:
             client.cancel(futures)
     finally:
