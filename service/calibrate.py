@@ -299,11 +299,15 @@ def run_calibration(
     workers: int | None = None,
     scheduler: str | None = None,
     progress: Callable[[int, int], None] | None = None,
+    injection: Callable[[CalibrationSetup, int], dict[str, Any]] = run_injection,
 ) -> dict[str, Any]:
     """Run every injection, write :data:`CALIBRATION_FILES`; return ``calibration.json``.
 
     The injections run in ``workers`` local processes, or on the Dask cluster of
     ``scheduler`` (``tcp://HOST:PORT``; ``workers`` is then its number of threads).
+    Each finished one is kept in the folder's :class:`Journal` at once, so the same
+    call after a stop runs only the rest. ``injection`` (an importable function) is
+    :func:`run_injection` except in tests.
     """
     from estimator.pp_plot import pp_plot  # matplotlib only when the plot is drawn
 
@@ -321,13 +325,13 @@ def run_calibration(
         from .dask_engine import map_on_cluster
 
         rows, workers = map_on_cluster(
-            run_injection, setup, setup.injections, scheduler=scheduler, progress=step,
+            injection, setup, setup.injections, scheduler=scheduler, progress=step,
             skip=journal.done, on_row=journal.add,
         )
     else:
         workers = max(1, workers or os.cpu_count() or 1)
         rows = run_in_processes(
-            run_injection, setup, setup.injections, workers=workers, progress=step,
+            injection, setup, setup.injections, workers=workers, progress=step,
             skip=journal.done, on_row=journal.add,
         )
     rows = sorted(kept + rows, key=lambda r: int(r["index"]))

@@ -23,9 +23,11 @@ from estimator.sky_plot import plot_sky_map
 from estimator.skymap import sky_map_from_samples
 
 from .pipeline import (
+    PlotCall,
     Progress,
     _corner,
-    _plot_pool,
+    _finish_plot,
+    _submit_plot,
     _with_unit,
     check_output_folder,
     write_folder,
@@ -85,9 +87,8 @@ def _make_plots(
         "declination": r"$\delta$ [deg]",
     }
     corner_samples = {k: derived[k] for k in labels}
-    pool = _plot_pool()
-    args = (corner_samples, folder / files["corner"], labels)
-    pending = pool.submit(_corner, *args) if pool is not None else None
+    corner_call: PlotCall = (_corner, (corner_samples, folder / files["corner"], labels), {})
+    pending = _submit_plot(corner_call)
     plot_sky_map(
         skymap, folder / files["sky_map"], title="Sky position of the source", frame="J2000"
     )
@@ -117,10 +118,7 @@ def _make_plots(
         },
         burn_in=result.chain.burn_in,
     )
-    if pending is not None:
-        pending.result(timeout=300)
-    else:
-        _corner(*args)
+    _finish_plot(pending, corner_call)
     return files
 
 

@@ -62,6 +62,41 @@ def test_spin_spin_2pn_matches_the_sigma_form(q: float, chi1: float, chi2: float
     assert a4 == pytest.approx(-10.0 * sigma, rel=1e-12, abs=1e-12)
 
 
+def test_higher_spin_orbit_terms_match_their_published_forms() -> None:
+    """2.5PN, 3PN and 3.5PN spin-orbit terms written out one by one against the table.
+
+    ``gamma`` (k = 5): Arun, Buonanno, Faye & Ochsner 2009, PRD 79, 104023, Eq. 6.22;
+    k = 6: ``pi (2270/3 delta chi_a + (2270/3 - 520 eta) chi_s)`` (same paper);
+    k = 7: Bohe, Marsat, Faye & Blanchet 2013, CQG 30, 075017, Eq. 6.25. All from
+    memory. spins.py evaluates them as one matrix product; this writes each term out,
+    over broadcast arrays of mass ratios and spins, so a slip in the table shows.
+    """
+    rng = np.random.default_rng(5)
+    q = rng.uniform(0.1, 1.0, (3, 4))
+    chi1, chi2 = rng.uniform(-0.99, 0.99, (2, 3, 4))
+    eta = symmetric_mass_ratio(q)
+    delta = np.sqrt(1.0 - 4.0 * eta)
+    chi_s, chi_a = 0.5 * (chi1 + chi2), 0.5 * (chi1 - chi2)
+    gamma = (732985.0 / 2268.0 - 24260.0 / 81.0 * eta - 340.0 / 9.0 * eta**2) * chi_s + (
+        732985.0 / 2268.0 + 140.0 / 9.0 * eta
+    ) * delta * chi_a
+    a6 = np.pi * (2270.0 / 3.0 * delta * chi_a + (2270.0 / 3.0 - 520.0 * eta) * chi_s)
+    a7 = (
+        -25150083775.0 / 3048192.0 + 10566655595.0 / 762048.0 * eta
+        - 1042165.0 / 3024.0 * eta**2 + 5345.0 / 36.0 * eta**3
+    ) * chi_s + (
+        -25150083775.0 / 3048192.0 + 26804935.0 / 6048.0 * eta - 1985.0 / 48.0 * eta**2
+    ) * delta * chi_a
+    terms = spin_phase_terms(eta, chi1, chi2)
+    np.testing.assert_allclose(terms[5][0], -gamma, rtol=1e-12, atol=1e-9)
+    np.testing.assert_allclose(terms[5][1], -3.0 * gamma, rtol=1e-12, atol=1e-9)
+    np.testing.assert_allclose(terms[6][0], a6, rtol=1e-12, atol=1e-9)
+    np.testing.assert_allclose(terms[7][0], a7, rtol=1e-12, atol=1e-9)
+    assert all(terms[k][0].shape == q.shape for k in terms)
+    scalar = spin_phase_terms(float(eta[0, 0]), float(chi1[0, 0]), float(chi2[0, 0]))
+    assert float(scalar[7][0]) == pytest.approx(float(a7[0, 0]), rel=1e-12)
+
+
 def test_effective_spin_is_the_mass_weighted_mean() -> None:
     """``chi_eff = (m1 chi1 + m2 chi2)/M`` (Ajith et al. 2011, PRL 106, 241101)."""
     m1, m2 = 30.0, 12.0

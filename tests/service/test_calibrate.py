@@ -75,3 +75,66 @@ def test_calibrate_refuses_a_spin_bound_outside_the_unit_interval(
     code = main(["calibrate", "--n", "4", "--spin-max", "1.2", "--out", str(tmp_path / "x")])
     assert code == 2
     assert "--spin-max 1.2" in capsys.readouterr().err
+
+
+def test_a_stopped_calibration_resumes_from_its_journal(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # A run stopped at injection 5 of 8 keeps what finished; the same call again runs
+    # only the rest and ends with the same rows as a run never stopped.
+    from service.calibrate import CalibrationSetup, Journal, run_calibration
+    from tests.service.calibrate_support import fake_injection
+
+    marks = tmp_path / "marks"
+    marks.mkdir()
+    monkeypatch.setenv("CHIRPCAST_TEST_MARKS", str(marks))
+    setup = CalibrationSetup(injections=8, seed=3)
+    out = tmp_path / "cal"
+    monkeypatch.setenv("CHIRPCAST_TEST_STOP_AT", "5")
+    with pytest.raises(RuntimeError, match="stopped at injection 5"):
+        run_calibration(setup, out, workers=1, injection=fake_injection)
+    journal = out / Journal.NAME
+    kept = journal.read_text().splitlines()[1:]
+    assert {json.loads(line)["index"] for line in kept} == {0, 1, 2, 3, 4}
+    assert not (out / "calibration.json").exists()
+
+    for mark in marks.iterdir():
+        mark.unlink()
+    monkeypatch.delenv("CHIRPCAST_TEST_STOP_AT")
+    seen: list[tuple[int, int]] = []
+    doc = run_calibration(setup, out, workers=1, injection=fake_injection,
+                          progress=lambda done, total: seen.append((done, total)))
+    assert sorted(m.name for m in marks.iterdir()) == [f"3-{i}" for i in (5, 6, 7)]
+    assert seen[0] == (5, 8)
+    assert seen[-1] == (8, 8)
+    assert not journal.exists()
+    with (out / "runs.csv").open(encoding="utf-8") as fh:
+        resumed = list(csv.DictReader(fh))
+    assert [int(r["index"]) for r in resumed] == list(range(8))
+    assert doc["injections"] == 8
+
+    whole = tmp_path / "whole"
+    run_calibration(setup, whole, workers=1, injection=fake_injection)
+    with (whole / "runs.csv").open(encoding="utf-8") as fh:
+        fresh = list(csv.DictReader(fh))
+    drop = {"wall_s"}
+    assert [{k: v for k, v in r.items() if k not in drop} for r in resumed] == [
+        {k: v for k, v in r.items() if k not in drop} for r in fresh
+    ]
+
+
+def test_a_journal_of_other_settings_is_refused(tmp_path: Path) -> None:
+    from estimator.errors import InputError
+    from service.calibrate import CalibrationSetup, Journal
+
+    out = tmp_path / "cal"
+    Journal(out, CalibrationSetup(injections=8, seed=3)).add({"index": 0})
+    with pytest.raises(InputError, match="partial run with other settings") as err:
+        Journal(out, CalibrationSetup(injections=8, seed=4))
+    assert err.value.field == "out"
+    again = Journal(out, CalibrationSetup(injections=8, seed=3))
+    assert again.done == {0}
+    # a last line cut short by the stop is dropped: that injection runs again
+    with (out / Journal.NAME).open("a", encoding="utf-8") as fh:
+        fh.write('{"index": 1, "attem')
+    assert Journal(out, CalibrationSetup(injections=8, seed=3)).done == {0}

@@ -2,7 +2,7 @@
 
 Found while reading the load-and-kill harness (``benchmarks/load_kill.py``), whose killer
 may hit a worker's plot helper rather than the worker: the helper's death used to fail the
-analysis (BrokenProcessPool); now the corner plot is drawn in the worker itself and the next
+analysis (BrokenProcessPool); now the plot is drawn in the worker itself and the next
 analysis starts a fresh helper. The PNG signature is from the
 PNG specification (W3C/ISO 15948, section 5.2).
 """
@@ -48,12 +48,14 @@ def test_corner_plot_is_drawn_when_the_helper_dies(tmp_path: Path) -> None:
     samples = _samples()
     _kill_helper()
     out = tmp_path / "corner.png"
-    pending = pipeline._submit_corner(samples, out, LABELS)
-    assert pipeline._finish_corner(pending, samples, out, LABELS) == out
+    call: pipeline.PlotCall = (pipeline._corner, (samples, out, LABELS), {})
+    pending = pipeline._submit_plot(call)
+    assert pipeline._finish_plot(pending, call) == out
     assert out.read_bytes()[:8] == PNG_SIGNATURE
     # The broken helper was dropped: the next plot goes to a fresh, working one.
     again = tmp_path / "again.png"
-    fresh = pipeline._submit_corner(samples, again, LABELS)
+    call = (pipeline._corner, (samples, again, LABELS), {})
+    fresh = pipeline._submit_plot(call)
     assert fresh is not None
-    assert pipeline._finish_corner(fresh, samples, again, LABELS) == again
+    assert pipeline._finish_plot(fresh, call) == again
     assert again.read_bytes()[:8] == PNG_SIGNATURE
