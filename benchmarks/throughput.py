@@ -6,7 +6,7 @@ Run from the repository root::
     .venv/bin/python benchmarks/throughput.py --drills 6 --repeats 3
     .venv/bin/python benchmarks/throughput.py --engines local --counts 1 2
 
-For each engine (``local``: :class:`service.worker.WorkerPool`; ``dask``: a
+For each engine (``local``: :class:`service.worker_pool.WorkerPool`; ``dask``: a
 ``distributed.LocalCluster`` on 127.0.0.1 of N one-thread worker processes, fed by
 :class:`service.dask_engine.DaskExecutor`) and each worker count N, the executor
 is started on a fresh data folder and warmed up (N analyses that fail at once, so

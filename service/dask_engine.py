@@ -31,7 +31,8 @@ from estimator.errors import InputError
 from . import jobs
 from .settings import ServiceSettings, check_scheduler_address
 from .storage import open_store
-from .worker import guard_forks, run_one_job
+from .worker import run_one_job
+from .worker_pool import guard_forks
 
 __all__ = ["CONNECT_TIMEOUT", "DaskExecutor", "connect", "map_on_cluster", "run_task"]
 
@@ -244,7 +245,7 @@ def map_on_cluster(
     """``function(setup, i)`` for ``i < count`` not in ``skip`` on the cluster.
 
     Returns the rows sorted by index and the cluster's threads. Like
-    :func:`service.calibrate.run_in_processes`, each row carries its ``index`` and
+    :func:`service.parallel_runs.run_in_processes`, each row carries its ``index`` and
     ``on_row`` sees each as it finishes; the first task that raises stops the run (the
     rest are cancelled) with its error.
     """

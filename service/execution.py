@@ -4,7 +4,7 @@ The database is the queue (:mod:`service.jobs`): an executor only provides place
 that claim the oldest queued analysis, run it with heartbeats and record its end.
 It never holds a job itself, so an executor that dies loses nothing: the job's
 heartbeat goes silent and the sweep puts it back in the queue. Two executors exist:
-local worker processes (:class:`service.worker.WorkerPool`, the default) and a Dask
+local worker processes (:class:`service.worker_pool.WorkerPool`, the default) and a Dask
 cluster (:class:`service.dask_engine.DaskExecutor`, ``--scheduler tcp://HOST:PORT``).
 """
 
@@ -51,7 +51,7 @@ def make_executor(settings: ServiceSettings) -> Executor:
         from .dask_engine import DaskExecutor
 
         return DaskExecutor(settings)
-    from .worker import WorkerPool
+    from .worker_pool import WorkerPool
 
     return WorkerPool(settings, settings.workers)
 

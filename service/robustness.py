@@ -32,8 +32,8 @@ from estimator.simulate import Injection, design_spectrum, simulate_segment
 from estimator.spins import effective_spin
 from estimator.stats import credible_interval
 
-from .calibrate import run_in_processes
 from .drill import optimal_snr
+from .parallel_runs import run_in_processes
 
 __all__ = ["STUDIED", "RobustnessSetup", "run_cross_injection", "run_study"]
 

@@ -82,7 +82,8 @@ def test_a_stopped_calibration_resumes_from_its_journal(
 ) -> None:
     # A run stopped at injection 5 of 8 keeps what finished; the same call again runs
     # only the rest and ends with the same rows as a run never stopped.
-    from service.calibrate import CalibrationSetup, Journal, run_calibration
+    from service.calibrate import CalibrationSetup, run_calibration
+    from service.parallel_runs import Journal
     from tests.service.calibrate_support import fake_injection
 
     marks = tmp_path / "marks"
@@ -125,7 +126,8 @@ def test_a_stopped_calibration_resumes_from_its_journal(
 
 def test_a_journal_of_other_settings_is_refused(tmp_path: Path) -> None:
     from estimator.errors import InputError
-    from service.calibrate import CalibrationSetup, Journal
+    from service.calibrate import CalibrationSetup
+    from service.parallel_runs import Journal
 
     out = tmp_path / "cal"
     Journal(out, CalibrationSetup(injections=8, seed=3)).add({"index": 0})

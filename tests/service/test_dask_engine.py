@@ -24,9 +24,10 @@ import pytest
 
 from estimator.errors import InputError
 from service import jobs
-from service.calibrate import CalibrationSetup, run_in_processes, run_injection
+from service.calibrate import CalibrationSetup, run_injection
 from service.cli import main
 from service.execution import Executor, make_executor
+from service.parallel_runs import run_in_processes
 from service.serve import lock_data_dir
 from service.settings import ServiceSettings
 from service.storage import Store, hash_secret, open_store

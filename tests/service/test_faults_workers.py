@@ -28,7 +28,8 @@ from service import jobs, worker
 from service.settings import ServiceSettings
 from service.storage import Store
 from service.store_sqlite import SqliteEngine
-from service.worker import WorkerPool, _run, run_one_job
+from service.worker import _run, run_one_job
+from service.worker_pool import WorkerPool
 
 from .faults_support import only_inputs_left, queue_job, wait_for
 

@@ -11,7 +11,7 @@ import pytest
 
 from service.settings import ServiceSettings
 from service.storage import Store, hash_secret
-from service.worker import WorkerPool
+from service.worker_pool import WorkerPool
 
 DEMO = Path(__file__).resolve().parents[2] / "demo_data"
 EVENT = json.loads((DEMO / "event.json").read_text(encoding="utf-8"))
