@@ -267,6 +267,6 @@ def trace_plot(
                   else f"{shown.size} of {n_walkers} walkers drawn")
     axes[-1].set_xlabel(f"step ({drawn_text}; dark line: median across all walkers)")
     fig.align_ylabels(axes)
-    fig.subplots_adjust(left=0.12, right=0.985, bottom=0.45 / height, top=1 - 0.15 / height,
+    fig.subplots_adjust(left=0.15, right=0.985, bottom=0.45 / height, top=1 - 0.15 / height,
                         hspace=0.12)
     return save_png(fig, path)
