@@ -12,6 +12,7 @@ the data folder is full or not writable is answered 507 (:mod:`service.storage_f
 from __future__ import annotations
 
 import logging
+import sqlite3
 import uuid
 from collections.abc import Mapping, Sequence
 from http import HTTPStatus
@@ -144,6 +145,18 @@ def install_handlers(app: FastAPI) -> None:
         message = str(exc.detail) if exc.status_code != 404 else "no such page or resource"
         return _answer(request, exc.status_code, codes.get(exc.status_code, "http_error"),
                        message, headers=dict(exc.headers or {}))
+
+    # Registered for these classes (not only under Exception), a storage fault is answered
+    # inside the app: the catch-all below answers too, but Starlette then re-raises and the
+    # server log gets a traceback for a condition already reported in one line.
+    async def storage_fault(request: Request, exc: Exception) -> Response:
+        if not is_storage_fault(exc):
+            raise exc  # to the catch-all: a 500 logged with its request id
+        full = storage_error(exc)
+        return _answer(request, full.status, full.code, full.message, headers=full.headers)
+
+    app.add_exception_handler(OSError, storage_fault)
+    app.add_exception_handler(sqlite3.Error, storage_fault)
 
     @app.exception_handler(Exception)
     async def unexpected(request: Request, exc: Exception) -> Response:
