@@ -245,6 +245,9 @@ def run_calibration(
     document = {
         **summary.to_dict(),
         "wall_time_s": round(wall, 1),
+        # a run resumed from its journal: these rows came from the earlier, stopped run
+        # (wall_time_s counts this run only; each row keeps its own wall_s)
+        "resumed_rows": len(kept),
         "workers": workers,
         "scheduler": scheduler,
         "setup": asdict(setup),

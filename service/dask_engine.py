@@ -249,7 +249,8 @@ def map_on_cluster(
     ``on_row`` sees each as it finishes; the first task that raises stops the run (the
     rest are cancelled) with its error.
     """
-    todo = [i for i in range(count) if i not in set(skip)]
+    skipped = set(skip)
+    todo = [i for i in range(count) if i not in skipped]
     client = connect(scheduler, timeout=timeout)
     try:
         threads = int(sum(client.nthreads().values()))

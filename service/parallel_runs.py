@@ -44,7 +44,8 @@ def run_in_processes(
     one thread each.
     """
     workers = max(1, workers or os.cpu_count() or 1)
-    todo = [i for i in range(count) if i not in set(skip)]
+    skipped = set(skip)
+    todo = [i for i in range(count) if i not in skipped]
     rows: list[dict[str, Any]] = []
     if not todo:
         return rows

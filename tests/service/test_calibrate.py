@@ -113,6 +113,7 @@ def test_a_stopped_calibration_resumes_from_its_journal(
         resumed = list(csv.DictReader(fh))
     assert [int(r["index"]) for r in resumed] == list(range(8))
     assert doc["injections"] == 8
+    assert doc["resumed_rows"] == 5
 
     whole = tmp_path / "whole"
     run_calibration(setup, whole, workers=1, injection=fake_injection)
