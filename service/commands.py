@@ -161,6 +161,7 @@ def _list_keys(keys: list[ApiKey]) -> None:
 
 def _run_calibrate(args: argparse.Namespace) -> int:
     from .calibrate import CALIBRATION_FILES, CalibrationSetup, run_calibration
+    from .parallel_runs import Journal
 
     if args.n < 2:
         msg = f"--n {args.n}: a calibration needs at least 2 injections (200 or more to trust it)"
@@ -188,6 +189,7 @@ def _run_calibrate(args: argparse.Namespace) -> int:
         snr_threshold=args.snr_threshold,
         spin_max=args.spin_max,
     )
+    Journal(args.out, setup)  # a stopped run of other settings in --out: refused before any bar
     bar: Any = None
     if not args.quiet:
         from tqdm import tqdm

@@ -141,3 +141,18 @@ def test_a_journal_of_other_settings_is_refused(tmp_path: Path) -> None:
     with (out / Journal.NAME).open("a", encoding="utf-8") as fh:
         fh.write('{"index": 1, "attem')
     assert Journal(out, CalibrationSetup(injections=8, seed=3)).done == {0}
+
+
+def test_calibrate_command_refuses_a_journal_of_other_settings_before_running(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    from service.calibrate import CalibrationSetup
+    from service.parallel_runs import Journal
+
+    out = tmp_path / "cal"
+    Journal(out, CalibrationSetup(injections=200, seed=2026)).add({"index": 0})
+    code = main(["calibrate", "--n", "3", "--seed", "1", "--out", str(out)])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert f"{out / Journal.NAME} holds a partial run with other settings" in err
+    assert "calibration:" not in err  # refused before the progress bar starts
