@@ -102,11 +102,16 @@ class Journal:
                 "to start again"
             )
             raise InputError(msg, field="out")
-        for line in lines[1:]:
+        for n, line in enumerate(lines[1:], start=1):
             try:
                 self.rows.append(json.loads(line))
             except json.JSONDecodeError:
-                break  # a line cut short by the stop: that injection runs again
+                # A line cut short by the stop: that injection runs again. The file is cut
+                # back to its whole lines, or the next row would be appended onto the stub.
+                tmp = self.path.with_suffix(".tmp")
+                tmp.write_text("".join(f"{x}\n" for x in lines[:n]), encoding="utf-8")
+                tmp.replace(self.path)
+                break
 
     @property
     def done(self) -> set[int]:

@@ -140,7 +140,10 @@ def test_a_journal_of_other_settings_is_refused(tmp_path: Path) -> None:
     # a last line cut short by the stop is dropped: that injection runs again
     with (out / Journal.NAME).open("a", encoding="utf-8") as fh:
         fh.write('{"index": 1, "attem')
-    assert Journal(out, CalibrationSetup(injections=8, seed=3)).done == {0}
+    resumed = Journal(out, CalibrationSetup(injections=8, seed=3))
+    assert resumed.done == {0}
+    resumed.add({"index": 1})  # appended after the whole lines, not onto the stub
+    assert Journal(out, CalibrationSetup(injections=8, seed=3)).done == {0, 1}
 
 
 def test_calibrate_command_refuses_a_journal_of_other_settings_before_running(
