@@ -21,6 +21,7 @@ from numpy.typing import NDArray
 
 from .conditioning import DetectorData
 from .likelihood import PARAMETER_NAMES, ExactLikelihood, log_i0
+from .priors import SPIN_NAMES
 from .relbin import RelativeBinningLikelihood
 from .relbin_model import ModelRelativeBinning, binned_likelihood
 from .waveform import chirp_time
@@ -53,6 +54,8 @@ def _profile_distance(
 ) -> tuple[float, float]:
     """Log-likelihood maximised over effective distance, and that distance.
 
+    ``reference`` may hold fixed aligned spins (``spin1``, ``spin2``); other keys are ignored.
+
     For ``h = h_1 / D`` the overlap is ``|z_1| / D`` and ``<h|h> = <h_1|h_1>/D^2``;
     ``|z| - <h|h>/2`` peaks at ``D = <h_1|h_1>/|z_1|`` (``ln I_0(x) ≈ x``, large ``x``).
     """
@@ -61,6 +64,7 @@ def _profile_distance(
         "mass_ratio": np.array([x[1]]),
         "effective_distance": np.array([1.0]),
         "coalescence_time": np.array([x[2]]),
+        **{k: np.array([float(v)]) for k, v in reference.items() if k in SPIN_NAMES},
     }
     z, hh = like.overlaps(params)
     dist = float(hh.sum() / max(np.abs(z).sum(), 1e-300))
@@ -84,6 +88,7 @@ def find_fiducial(
     progress: Callable[[float], None] | None = None,
     exact: ExactLikelihood | None = None,
     model: str = "taylorf2",
+    spins: tuple[float, float] = (0.0, 0.0),
 ) -> Fiducial:
     """Maximise the likelihood over (chirp mass, q, t_c), distance profiled out.
 
@@ -94,7 +99,9 @@ def find_fiducial(
         relative to ``reference_time``).
     model
         Waveform model (:mod:`estimator.models`); ``exact``, when given, must use it.
-        The fiducial is non-spinning (the sampler explores the spins).
+    spins
+        Aligned spins ``(spin1, spin2)`` held fixed during the climb (the sampler
+        explores them); non-zero ones are part of the returned parameters.
     """
     if exact is None:
         exact = ExactLikelihood(datasets, reference_time, model=model)
@@ -103,18 +110,17 @@ def find_fiducial(
     lo = np.array([chirp_mass_range[0], mass_ratio_range[0], -time_window])
     hi = np.array([chirp_mass_range[1], mass_ratio_range[1], time_window])
     x = np.array([start["chirp_mass"], start["mass_ratio"], start["coalescence_time"]], dtype=float)
+    fixed = {k: float(v) for k, v in zip(SPIN_NAMES, spins, strict=True) if v != 0.0}
     evaluations = 0
 
-    def objective(
-        like: AnyLikelihood, transform: Array
-    ) -> Callable[[Array], float]:
+    def objective(like: AnyLikelihood, transform: Array) -> Callable[[Array], float]:
         def f(u: Array) -> float:
             nonlocal evaluations
             evaluations += 1
             y = x_anchor + transform @ u
             # Clip onto the box (flat outside it) so the simplex can slide along a bound.
             y = np.clip(y, lo, hi)
-            return -_profile_distance(like, y, start)[0]
+            return -_profile_distance(like, y, fixed)[0]
 
         return f
 
@@ -122,12 +128,12 @@ def find_fiducial(
         binned_likelihood(
             datasets,
             reference_time,
-            {**start, "effective_distance": 1.0},
+            {**start, "effective_distance": 1.0, **fixed},
             n_bins=n_bins,
             model=model,
         ),
         x,
-        start,
+        fixed,
     )
     steps = {
         "chirp_mass": scale[0],
@@ -142,14 +148,19 @@ def find_fiducial(
             "mass_ratio": x[1],
             "effective_distance": dist,
             "coalescence_time": x[2],
+            **fixed,
         }
         like: AnyLikelihood
         if r < rounds:
             like = binned_likelihood(datasets, reference_time, fid, n_bins=n_bins, model=model)
+
             # Whiten the coordinates with the local curvature, so the simplex moves
             # along the chirp-mass / mass-ratio ridge instead of across it.
+            def with_spins(p: Mapping[str, Array], like: AnyLikelihood = like) -> Array:
+                return like.log_likelihood({**p, **{k: np.full(1, v) for k, v in fixed.items()}})
+
             for _ in range(2):
-                cov = curvature_covariance(like.log_likelihood, fid, steps)
+                cov = curvature_covariance(with_spins, fid, steps)
                 steps = {k: 0.5 * float(np.sqrt(cov[i, i])) for i, k in enumerate(PARAMETER_NAMES)}
                 steps["mass_ratio"] = min(steps["mass_ratio"], 0.1)
             block = cov[np.ix_([0, 1, 3], [0, 1, 3])]
@@ -168,7 +179,7 @@ def find_fiducial(
             options={**options, "initial_simplex": init},
         )
         x = np.clip(x_anchor + transform @ res.x, lo, hi)
-        _, dist = _profile_distance(like, x, start)
+        _, dist = _profile_distance(like, x, fixed)
         if progress is not None:
             progress((r + 1) / (rounds + 1))
     params = {
@@ -176,6 +187,7 @@ def find_fiducial(
         "mass_ratio": float(x[1]),
         "effective_distance": float(dist),
         "coalescence_time": float(x[2]),
+        **fixed,
     }
     arrays = {k: np.array([v]) for k, v in params.items()}
     log_l = float(exact.log_likelihood(arrays)[0])

@@ -91,6 +91,7 @@ def _start_walkers(
     walkers: int,
     limits: Mapping[str, float],
     spin_max: float = 0.0,
+    spins: tuple[float, float] = (0.0, 0.0),
 ) -> Array:
     """Walkers drawn from the Fisher Gaussian at the fiducial, kept inside the prior.
 
@@ -110,9 +111,9 @@ def _start_walkers(
     center["mass_ratio"] = mass_ratio_of_eta(center.pop("symmetric_mass_ratio"))
     spinning = coords.spinning
     depth = START_DEPTH_SPINNING if spinning else START_DEPTH
-    if spinning:  # the fiducial is non-spinning; walkers start around zero spin
-        for name in ("spin1", "spin2"):
-            center[name] = np.zeros(1)
+    if spinning:  # walkers start around the fiducial's spins (zero unless a scan moved it)
+        for name, value in zip(SPIN_NAMES, spins, strict=True):
+            center[name] = np.array([value])
     peak = float(log_like(coords.from_physical(center))[0])
     out = np.empty((0, len(coords.names)))
     for _ in range(100):
@@ -126,9 +127,9 @@ def _start_walkers(
             "effective_distance": draws[good, 3],
         }
         if spinning:
-            for name in ("spin1", "spin2"):
+            for name, value in zip(SPIN_NAMES, spins, strict=True):
                 physical[name] = np.clip(
-                    START_SPIN_SPREAD * spin_max * rng.standard_normal(int(good.sum())),
+                    value + START_SPIN_SPREAD * spin_max * rng.standard_normal(int(good.sum())),
                     -0.999 * spin_max,
                     0.999 * spin_max,
                 )
@@ -233,6 +234,7 @@ def sample_posterior(
                     "effective_distance": 0.5 * center["effective_distance"],
                 },
                 spin_max=prior.spin_max,
+                spins=(float(center.get("spin1", 0.0)), float(center.get("spin2", 0.0))),
             )
             # A first look before sampling: points spread twice as widely as the starting
             # walkers (about as widely as the posterior's tails) must already meet the

@@ -152,6 +152,20 @@ def _gating_dict(result: AnalysisResult) -> dict[str, Any] | None:
     }
 
 
+def _mode_scan_dict(result: AnalysisResult) -> dict[str, Any] | None:
+    """The aligned-spin mode scan as ``summary.json`` records it (None when it did not run)."""
+    scan = result.mode_scan
+    if scan is None:
+        return None
+    return {
+        "templates": scan.templates,
+        "loudest_template_snr": scan.best_snr,
+        "log_likelihood_gain": scan.gain if np.isfinite(scan.gain) else None,
+        "adopted": scan.adopted,
+        "peak": None if scan.candidate is None else dict(scan.candidate.params),
+    }
+
+
 def _interval(x: Array, unit: str) -> dict[str, Any]:
     median, lower, upper = credible_interval(x, CREDIBLE_LEVEL)
     return {"median": median, "lower": lower, "upper": upper, "unit": unit}
@@ -222,6 +236,7 @@ def build_summary(
             "thin": chain.thin,
             "converged": chain.converged,
             "likelihood_check": check_dict(result.check),
+            "mode_scan": _mode_scan_dict(result),
             "timings_s": {k: round(float(v), 3) for k, v in result.timings.items()},
         },
         "settings": {
