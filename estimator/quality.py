@@ -366,6 +366,7 @@ def assess_quality(result: AnalysisResult) -> QualityReport:
         _likelihood_check(result),
         _low_frequency_check(result),
         _gating_check(result),
+        _peak_check(result),
     ]
     return QualityReport(checks)
 
@@ -411,3 +412,32 @@ def _gating_check(result: AnalysisResult) -> QualityCheck:
         parts.append("No loud short glitch was found in the segment.")
     # A remedy, not a verdict: a glitch at the signal is the transient check's to flag.
     return QualityCheck("gating", True, float(len(scan.gates)), rule, " ".join(parts))
+
+
+def _peak_check(result: AnalysisResult) -> QualityCheck:
+    """The aligned-spin scan for a higher likelihood peak (a remedy, like gating; a note)."""
+    scan = result.mode_scan
+    rule = (
+        "short signals with a wide spin prior: an aligned-spin template scan checks that "
+        "the sampler starts on the highest likelihood peak"
+    )
+    if scan is None:
+        return QualityCheck(
+            "spin_peak", True, 0.0, rule,
+            "Not needed: the signal is long enough, or the spin prior narrow enough, that the "
+            "spins cannot move the best fit to another peak.",
+        )  # fmt: skip
+    if scan.adopted and scan.candidate is not None:
+        p = scan.candidate.params
+        words = (
+            f"A scan of {scan.templates} spinning templates found a peak {scan.gain:.1f} higher "
+            f"in log-likelihood than the best non-spinning fit (chirp mass "
+            f"{p['chirp_mass']:.3g} Msun, q {p['mass_ratio']:.2f}, both spins "
+            f"{p.get('spin1', 0.0):+.2f}); the sampler started there."
+        )
+    else:
+        words = (
+            f"A scan of {scan.templates} spinning templates found no peak clearly higher than "
+            "the best non-spinning fit; the sampler started there."
+        )
+    return QualityCheck("spin_peak", True, max(scan.gain, 0.0), rule, words)

@@ -16,6 +16,7 @@ import pytest
 from estimator.analysis import AnalysisSettings, run_analysis
 from estimator.likelihood import ExactLikelihood
 from estimator.mode_scan import ADOPT_MARGIN, wants_mode_scan
+from estimator.quality import assess_quality
 from estimator.simulate import Injection, design_spectrum, simulate_segment
 from estimator.spins import effective_spin
 from estimator.stats import credible_interval
@@ -59,6 +60,9 @@ def test_a_spinning_heavy_source_is_found_on_its_own_peak() -> None:
     assert scan is not None
     assert scan.adopted
     assert scan.gain > 20.0 > ADOPT_MARGIN
+    verdict = {c.name: c for c in assess_quality(res).checks}["spin_peak"]
+    assert verdict.value == pytest.approx(scan.gain)
+    assert "the sampler started there" in verdict.explanation
     truth = {
         "chirp_mass": mc,
         "mass_ratio": q,

@@ -94,6 +94,7 @@ def test_clean_data_pass_every_check(clean: AnalysisResult) -> None:
     assert set(checks) == {
         "residual_variance", "residual_normality", "transient",
         "segment_edges", "band_edge", "likelihood_check", "low_frequency_cut", "gating",
+        "spin_peak",
     }  # fmt: skip
     # Unit variance within 4 standard deviations of its sampling error sqrt(2 / (2 B T)).
     _, residual, _ = residual_series(clean)
