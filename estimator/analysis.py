@@ -24,7 +24,7 @@ from .fiducial import Fiducial, find_fiducial
 from .fisher import FisherEstimate, fisher_estimate
 from .gating import GlitchScan, find_glitches, gate_data
 from .likelihood import ExactLikelihood
-from .mode_scan import ModeScan, scan_spinning_modes, wants_mode_scan
+from .mode_scan import ModeScan, bank_spins, scan_spinning_modes, wants_mode_scan
 from .models import model_top, resolve_model
 from .posterior import LikelihoodCheck, sample_posterior
 from .priors import InspiralPrior
@@ -241,6 +241,7 @@ def run_analysis(
             if settings.mass_ratio_range[0] <= q <= settings.mass_ratio_range[1]
         )
         or (settings.mass_ratio_range[1],),
+        spins=bank_spins(prior.spin_max),
     )
     timings["search"] = time.perf_counter() - clock
     model = resolve_model(
@@ -291,6 +292,7 @@ def run_analysis(
         progress=stage_progress(progress, "fiducial"),
         exact=exact,
         model=model,
+        spins=(found.spin, found.spin),
     )
     timings["fiducial"] = time.perf_counter() - clock
     mode_scan = None
@@ -321,7 +323,7 @@ def run_analysis(
             p = fiducial.params
             notes.append(
                 f"an aligned-spin template scan found a likelihood peak {mode_scan.gain:.1f} "
-                f"above the best non-spinning fit (chirp mass {p['chirp_mass']:.3g} Msun, "
+                f"above the fit climbed from the search (chirp mass {p['chirp_mass']:.3g} Msun, "
                 f"q {p['mass_ratio']:.2f}, spins {p.get('spin1', 0.0):+.2f}); "
                 "the sampler started there"
             )

@@ -1,22 +1,24 @@
 """A coarse aligned-spin template scan that checks the fiducial is the right mode.
 
-The fiducial (:mod:`estimator.fiducial`) is climbed from the non-spinning search
-with the spins held at zero. For short signals (a heavy binary with a few
-cycles in band) the aligned spins are degenerate with the masses in a way that
-is not a smooth ridge: a spinning source can leave its best non-spinning match
+The search (:mod:`estimator.search`) tries equal aligned spins :func:`bank_spins`
+beside its mass ratios, and the fiducial (:mod:`estimator.fiducial`) is climbed
+from its loudest template with that template's spins held fixed. For a short
+signal (a heavy binary with a few cycles in band) the masses and the aligned
+spins are degenerate in a way that is not one smooth ridge: the climb can end
 on a secondary peak of the likelihood, tens of log-likelihood units below the
-true one and far from it in chirp mass (chirpcast's 200-injection calibration,
-2026-12-03: 3 of 116 spinning injections sampled a secondary mode, truth outside
-every interval, e.g. chirp mass 11.0 Msun sampled at 13.7-14.3 Msun). The
-sampler's walkers start around the fiducial and do not cross to another peak.
+true one and far from it in chirp mass, and the sampler's walkers, which start
+around the fiducial, do not cross to the other peak (chirpcast's 200-injection
+calibration, 2026-12-03: 3 of 116 spinning injections sampled a secondary mode
+with the truth outside every interval, e.g. chirp mass 11.0 Msun sampled at
+13.7-14.3 Msun).
 
 So before sampling, a bank of templates of the analysis's own model, on a grid
 of chirp mass (spaced in Newtonian chirp time as the search is), mass ratio and
 equal aligned spins, is correlated with the data by one inverse FFT each (the
 SNR at every time shift at once, Allen et al. 2012, PRD 85, 122006, Sec. IV).
 The loudest few are climbed as the fiducial is, spins fixed, and the best of
-those replaces the non-spinning fiducial when its log-likelihood is higher by
-more than :data:`ADOPT_MARGIN`.
+those replaces the fiducial when its log-likelihood is higher by more than
+:data:`ADOPT_MARGIN`.
 """
 
 from __future__ import annotations
@@ -36,13 +38,17 @@ from .models import model_parts
 from .search import SPACING, _chirp_mass_from_tau, _stage_data, template_duration
 from .waveform import chirp_time
 
-__all__ = ["ADOPT_MARGIN", "ModeScan", "scan_spinning_modes", "wants_mode_scan"]
+__all__ = ["ADOPT_MARGIN", "ModeScan", "bank_spins", "scan_spinning_modes", "wants_mode_scan"]
 
 Array = NDArray[np.float64]
 
-#: The scan runs for signals at most this long above f_low (s): longer ones have
-#: enough cycles that the chirp mass is pinned and the spin-mass ridge is smooth.
-LONGEST_SIGNAL = 16.0
+#: The scan runs for signals at most this long above f_low (s). Longer ones have so
+#: many cycles that the likelihood is too narrow in spin and mass ratio for a coarse
+#: bank: it then finds a wrong peak (calibration injection 0 of 2026-12-03, chirp mass
+#: 4.6 Msun, q 0.22, spins -0.93/0.19: the loudest cell climbed to 202 against 322 at
+#: the truth, and only equal spins within 0.05 of -0.8 reach the truth's peak at all),
+#: while the sampler's moves follow the ridge from the search's spinning template.
+LONGEST_SIGNAL = 10.0
 #: ... and for spin priors at least this wide (narrower ones cannot move the masses far).
 SMALLEST_SPIN_MAX = 0.2
 #: Equal aligned spins of the bank, before clipping to the prior (90% of spin_max).
@@ -58,7 +64,7 @@ HALF_RANGE_FRACTION = 0.35
 COARSENING = 1.5
 #: Loudest templates (distinct spin and mass-ratio cells) climbed to a peak.
 CLIMBED = 2
-#: A scanned peak replaces the non-spinning fiducial when its log-likelihood is
+#: A scanned peak replaces the fiducial when its log-likelihood is
 #: higher by more than this: half the 99.9% quantile of chi^2 with one degree of
 #: freedom, the gain a free spin gives by fitting noise alone (Wilks 1938, Ann.
 #: Math. Stat. 9, 60; the threshold is common practice).
@@ -78,9 +84,9 @@ class ModeScan:
     candidate
         The best climbed peak (spins fixed at the template's), or None.
     adopted
-        Whether ``candidate`` replaced the non-spinning fiducial.
+        Whether ``candidate`` replaced the fiducial climbed from the search.
     gain
-        Its log-likelihood minus the non-spinning fiducial's.
+        Its log-likelihood minus that fiducial's.
     """
 
     templates: int
@@ -88,6 +94,17 @@ class ModeScan:
     candidate: Fiducial | None
     adopted: bool
     gain: float
+
+
+def bank_spins(spin_max: float) -> tuple[float, ...]:
+    """Equal aligned spins a search or scan bank tries under a prior of ``±spin_max``.
+
+    :data:`SPIN_GRID` clipped to 90% of the prior's bound; only zero below
+    :data:`SMALLEST_SPIN_MAX` (where the spins cannot move the masses far).
+    """
+    if spin_max < SMALLEST_SPIN_MAX:
+        return (0.0,)
+    return tuple(sorted({float(np.clip(c, -0.9 * spin_max, 0.9 * spin_max)) for c in SPIN_GRID}))
 
 
 def wants_mode_scan(chirp_mass: float, mass_ratio: float, f_low: float, spin_max: float) -> bool:
@@ -167,7 +184,7 @@ def scan_spinning_modes(
     grid = np.unique(np.concatenate([grid, [mc0]]))
     qs = [q for q in MASS_RATIO_GRID if mass_ratio_range[0] <= q <= mass_ratio_range[1]]
     qs = qs or [float(fiducial.params["mass_ratio"])]
-    chis = sorted({float(np.clip(c, -0.9 * spin_max, 0.9 * spin_max)) for c in SPIN_GRID})
+    chis = bank_spins(spin_max)
     longest = template_duration(float(grid.min()), min(qs), f_low)
     available = reference_time - segment.start_time - time_window - 2.0 * taper_duration - 1.0
     data = _stage_data(

@@ -431,13 +431,13 @@ def _peak_check(result: AnalysisResult) -> QualityCheck:
         p = scan.candidate.params
         words = (
             f"A scan of {scan.templates} spinning templates found a peak {scan.gain:.1f} higher "
-            f"in log-likelihood than the best non-spinning fit (chirp mass "
+            f"in log-likelihood than the fit climbed from the search (chirp mass "
             f"{p['chirp_mass']:.3g} Msun, q {p['mass_ratio']:.2f}, both spins "
             f"{p.get('spin1', 0.0):+.2f}); the sampler started there."
         )
     else:
         words = (
             f"A scan of {scan.templates} spinning templates found no peak clearly higher than "
-            "the best non-spinning fit; the sampler started there."
+            "the fit climbed from the search; the sampler started there."
         )
     return QualityCheck("spin_peak", True, max(scan.gain, 0.0), rule, words)

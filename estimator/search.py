@@ -76,6 +76,8 @@ class SearchResult:
     snr: float
     templates: int
     stages: tuple[tuple[float, float], ...]
+    #: Aligned spin of both bodies of the loudest template (0 for a non-spinning bank).
+    spin: float = 0.0
 
 
 def template_duration(chirp_mass: float, mass_ratio: float, f_low: float) -> float:
@@ -92,6 +94,7 @@ def snr_time_series(
     f_max: float,
     window: tuple[float, float] | None = None,
     basis: PhaseBasis | None = None,
+    spin: float = 0.0,
 ) -> tuple[Array, NDArray[np.float64]]:
     """Matched-filter SNR of each template at every time shift, one inverse FFT each.
 
@@ -102,6 +105,9 @@ def snr_time_series(
     basis
         A :class:`PhaseBasis` on ``data.frequencies[data.frequencies <= f_max]``
         to reuse between calls.
+    spin
+        Aligned spin of both bodies (the phase's spin terms; the template still ends
+        at the non-spinning ISCO frequency).
 
     Returns
     -------
@@ -121,7 +127,8 @@ def snr_time_series(
     m = scipy.fft.next_fast_len(2 * (k0 + f.size))
     weight = 4.0 * data.df / data.psd[keep]
     # Single precision is plenty for a search (phase error ~1e-3 rad).
-    psi = (basis.phase(mc, np.full(mc.shape, mass_ratio)) - np.pi / 4.0).astype(np.float32)
+    spins = (np.full(mc.shape, spin), np.full(mc.shape, spin)) if spin != 0.0 else (None, None)
+    psi = (basis.phase(mc, np.full(mc.shape, mass_ratio), *spins) - np.pi / 4.0).astype(np.float32)
     inband = f[None, :] <= f_cut[:, None]
     hh = np.maximum(np.sum(inband * (f ** (-7.0 / 3.0) * weight)[None, :], axis=1), 1e-300)
     # c = d h* / S: h* = f^{-7/6} exp(+i psi), applied as cos and sin (faster than exp).
@@ -189,6 +196,7 @@ def search_chirp_mass(
     trigger_time: float,
     chirp_mass_range: tuple[float, float],
     mass_ratios: tuple[float, ...] = (1.0, 0.5, 0.25),
+    spins: tuple[float, ...] = (0.0,),
     f_low: float,
     f_high: float,
     time_window: float = 0.1,
@@ -207,6 +215,9 @@ def search_chirp_mass(
         Detector-frame chirp-mass range to cover, Msun.
     mass_ratios
         Fixed mass ratios at which the chirp-mass search is repeated.
+    spins
+        Equal aligned spins of both bodies at which it is repeated too: a spinning
+        source's best non-spinning template can lie far from it in chirp mass.
     f_low, f_high
         Analysis band; the search uses at most 512 Hz of it (1 ms time
         resolution locates the peak; the rest carries little of an inspiral's SNR).
@@ -220,7 +231,9 @@ def search_chirp_mass(
     cache: dict[tuple[float, float], tuple[DetectorData, PhaseBasis]] = {}
     counter = [0]
 
-    def run_stage(f_s: float, mc_lo: float, mc_hi: float, q: float) -> tuple[float, float, float]:
+    def run_stage(
+        f_s: float, mc_lo: float, mc_hi: float, q: float, chi: float
+    ) -> tuple[float, float, float]:
         longest = min(template_duration(mc_lo, q, f_s), available)
         key = (round(f_s, 6), round(longest, 1))
         if key not in cache:
@@ -244,7 +257,7 @@ def search_chirp_mass(
         peaks = np.empty(trial.size)
         for s in range(0, trial.size, 8):
             times, snr = snr_time_series(
-                data, trial[s : s + 8], q, f_max=f_max, window=span, basis=basis
+                data, trial[s : s + 8], q, f_max=f_max, window=span, basis=basis, spin=chi
             )
             arg = np.argmax(snr, axis=1)
             scores[s : s + 8] = snr[np.arange(arg.size), arg]
@@ -259,12 +272,13 @@ def search_chirp_mass(
     q_first = mass_ratios[0]
     for a, b in itertools.pairwise(pieces):
         f_s = _first_stage_frequency(a, b, f_low, q_first)
-        mc, snr, peak = run_stage(f_s, a, b, q_first)
-        first.append((snr, f_s, mc, peak))
+        for chi in spins:
+            mc, snr, peak = run_stage(f_s, a, b, q_first, chi)
+            first.append((snr, f_s, mc, peak, chi))
     first.sort(reverse=True)
-    n_jobs = min(len(first), REFINE)
+    n_jobs = min(len(first), REFINE + len(spins) - 1)
     best: SearchResult | None = None
-    for j, (snr, f_s, mc, peak) in enumerate(first[:n_jobs]):
+    for j, (snr, f_s, mc, peak, chi) in enumerate(first[:n_jobs]):
         stages = [(f_s, snr)]
         q = q_first
         while True:
@@ -284,14 +298,14 @@ def search_chirp_mass(
             )
             f_s = f_next
             if final:
-                trials = [(*run_stage(f_s, mc_lo, mc_hi, r), r) for r in mass_ratios]
+                trials = [(*run_stage(f_s, mc_lo, mc_hi, r, chi), r) for r in mass_ratios]
                 mc, snr, peak, q = max(trials, key=lambda t: t[1])
                 stages.append((f_s, snr))
                 break
-            mc, snr, peak = run_stage(f_s, mc_lo, mc_hi, q_first)
+            mc, snr, peak = run_stage(f_s, mc_lo, mc_hi, q_first, chi)
             stages.append((f_s, snr))
         if best is None or snr > best.snr:
-            best = SearchResult(mc, q, peak, snr, 0, tuple(stages))
+            best = SearchResult(mc, q, peak, snr, 0, tuple(stages), chi)
         if progress is not None:
             progress((j + 1) / n_jobs)
     if best is None:
@@ -304,6 +318,7 @@ def search_chirp_mass(
         snr=best.snr,
         templates=counter[0],
         stages=best.stages,
+        spin=best.spin,
     )
 
 
