@@ -216,6 +216,7 @@ def build_summary(
             "coalescence_time": result.search.coalescence_time,
             "snr": result.search.snr,
             "templates": result.search.templates,
+            "spin": result.search.spin,
         },
         "diagnostics": {
             "autocorrelation_time": {
