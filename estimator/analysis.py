@@ -116,6 +116,54 @@ def stage_progress(
     return call
 
 
+def _climb_from_search(
+    found: SearchResult,
+    datasets: Sequence[DetectorData],
+    reference: float,
+    settings: AnalysisSettings,
+    exact: ExactLikelihood,
+    model: str,
+    progress: Callable[[float], None],
+) -> Fiducial:
+    """The fiducial climbed from the search's loudest template, spins held at its own.
+
+    When the loudest template is spinning and a non-spinning one was found too,
+    both are climbed and the higher exact likelihood is kept (the search's
+    templates end at the ISCO, so for a heavy source a spinning one can be
+    louder there and yet far from the source).
+    """
+    starts = [found] + ([found.plain] if found.plain is not None else [])
+    best: Fiducial | None = None
+    for i, start in enumerate(starts):
+
+        def step(fraction: float, i: int = i) -> None:
+            progress((i + fraction) / len(starts))
+
+        climbed = find_fiducial(
+            datasets,
+            reference,
+            {
+                "chirp_mass": start.chirp_mass,
+                "mass_ratio": start.mass_ratio,
+                "coalescence_time": start.coalescence_time - reference,
+            },
+            mass_ratio_range=settings.mass_ratio_range,
+            chirp_mass_range=settings.chirp_mass_range,
+            time_window=settings.time_window,
+            n_bins=settings.n_bins,
+            progress=step,
+            exact=exact,
+            model=model,
+            spins=(start.spin, start.spin),
+        )
+        if best is None or climbed.log_likelihood > best.log_likelihood:
+            best = climbed
+    if best is None:  # pragma: no cover - starts is never empty
+        msg = "no start to climb from"
+        raise RuntimeError(msg)
+    return best
+
+
 def analysis_prior(settings: AnalysisSettings) -> InspiralPrior:
     """The prior an analysis with ``settings`` samples under (see :mod:`estimator.priors`)."""
     return InspiralPrior(
@@ -277,22 +325,8 @@ def run_analysis(
     reference = settings.trigger_time
     datasets = [data]
     exact = ExactLikelihood(datasets, reference, model=model)
-    fiducial = find_fiducial(
-        datasets,
-        reference,
-        {
-            "chirp_mass": found.chirp_mass,
-            "mass_ratio": found.mass_ratio,
-            "coalescence_time": found.coalescence_time - reference,
-        },
-        mass_ratio_range=settings.mass_ratio_range,
-        chirp_mass_range=mc_range,
-        time_window=settings.time_window,
-        n_bins=settings.n_bins,
-        progress=stage_progress(progress, "fiducial"),
-        exact=exact,
-        model=model,
-        spins=(found.spin, found.spin),
+    fiducial = _climb_from_search(
+        found, datasets, reference, settings, exact, model, stage_progress(progress, "fiducial")
     )
     timings["fiducial"] = time.perf_counter() - clock
     mode_scan = None

@@ -78,6 +78,10 @@ class SearchResult:
     stages: tuple[tuple[float, float], ...]
     #: Aligned spin of both bodies of the loudest template (0 for a non-spinning bank).
     spin: float = 0.0
+    #: The loudest non-spinning template when a spinning one is louder (else None): for a
+    #: heavy source the inspiral-only templates can favour a spinning one far from it,
+    #: so the analysis climbs from both and keeps the higher likelihood.
+    plain: SearchResult | None = None
 
 
 def template_duration(chirp_mass: float, mass_ratio: float, f_low: float) -> float:
@@ -276,9 +280,17 @@ def search_chirp_mass(
             mc, snr, peak = run_stage(f_s, a, b, q_first, chi)
             first.append((snr, f_s, mc, peak, chi))
     first.sort(reverse=True)
-    n_jobs = min(len(first), REFINE + len(spins) - 1)
+    # The loudest non-spinning candidates are followed as they always were, and the
+    # loudest spinning ones beside them: each family's best is returned.
+    jobs = sorted(
+        [c for c in first if c[4] == 0.0][:REFINE]
+        + [c for c in first if c[4] != 0.0][: len(spins) - 1],
+        reverse=True,
+    )
+    n_jobs = len(jobs)
     best: SearchResult | None = None
-    for j, (snr, f_s, mc, peak, chi) in enumerate(first[:n_jobs]):
+    best_plain: SearchResult | None = None
+    for j, (snr, f_s, mc, peak, chi) in enumerate(jobs):
         stages = [(f_s, snr)]
         q = q_first
         while True:
@@ -304,8 +316,11 @@ def search_chirp_mass(
                 break
             mc, snr, peak = run_stage(f_s, mc_lo, mc_hi, q_first, chi)
             stages.append((f_s, snr))
+        found = SearchResult(mc, q, peak, snr, 0, tuple(stages), chi)
         if best is None or snr > best.snr:
-            best = SearchResult(mc, q, peak, snr, 0, tuple(stages), chi)
+            best = found
+        if chi == 0.0 and (best_plain is None or snr > best_plain.snr):
+            best_plain = found
         if progress is not None:
             progress((j + 1) / n_jobs)
     if best is None:
@@ -319,6 +334,7 @@ def search_chirp_mass(
         templates=counter[0],
         stages=best.stages,
         spin=best.spin,
+        plain=None if spins == (0.0,) or best_plain is best else best_plain,
     )
 
 

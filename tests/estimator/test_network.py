@@ -175,10 +175,14 @@ def timing_area(drill: Drill, snrs: np.ndarray, level: float = 0.9) -> tuple[flo
 
 @pytest.mark.slow
 def test_network_recovery_and_localisation(drill: Drill, result: NetworkResult) -> None:
-    """Seeded injection at network SNR ~20: truth inside the 90% intervals and sky region.
+    """Seeded injection at network SNR ~20: truth inside the 99% intervals and sky region.
 
     Each of the 4 one-dimensional checks and the sky check fails by chance with
-    probability 0.1 for a calibrated posterior (fixed seed: the outcome is fixed).
+    probability 0.01 for a calibrated posterior, at most 5% for the five together.
+    With 90% intervals (until 2026-12-03) that was 41%, and the fixed seed's outcome
+    turned on the last digits of the arithmetic: on an AVX-512 machine the mass-ratio
+    interval began at 0.7025 against a truth of 0.7, on the same code that passed in
+    CI. Coverage at 90% is the coverage test's job, over many injections.
     The localisation width (square root of the 90% area) is compared with the
     timing-only triangulation of Fairhurst 2009: it must be less than twice that. A
     coherent analysis also uses the detectors' relative phases and amplitudes, so it
@@ -190,10 +194,10 @@ def test_network_recovery_and_localisation(drill: Drill, result: NetworkResult) 
     truth = drill.truth()
     s = result.samples
     for name in ("chirp_mass", "mass_ratio", "luminosity_distance", "coalescence_time"):
-        _, lo, hi = credible_interval(s[name], 0.9)
+        _, lo, hi = credible_interval(s[name], 0.99)
         assert lo <= truth[name] <= hi, name
     sky = sky_map_from_samples(s["right_ascension"], s["declination"])
-    assert sky.credible_level(truth["right_ascension"], truth["declination"]) < 0.9
+    assert sky.credible_level(truth["right_ascension"], truth["declination"]) < 0.99
     assert result.chain.effective_sample_size >= 2000
     assert result.check.passed
     _, hh = result.exact.components({k: np.array([v]) for k, v in truth.items()})
