@@ -83,7 +83,7 @@ QUALITY_TITLES: Mapping[str, str] = {
     "likelihood_check": "Fast likelihood agrees with exact",
     "low_frequency_cut": "Segment long enough for the band",
     "gating": "Glitches away from the signal gated",
-    "spin_peak": "Sampler started on the highest peak",
+    "spin_peak": "Start checked against other likelihood peaks",
 }
 #: Plot keys in report order; their titles and captions live in templates/figures.html.
 PLOT_ORDER = ("sky_map", "corner", "whitened", "time_frequency", "spectrum", "traces")
