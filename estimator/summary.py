@@ -217,6 +217,15 @@ def build_summary(
             "snr": result.search.snr,
             "templates": result.search.templates,
             "spin": result.search.spin,
+            "loudest_non_spinning": (
+                None
+                if result.search.plain is None
+                else {
+                    "chirp_mass": result.search.plain.chirp_mass,
+                    "mass_ratio": result.search.plain.mass_ratio,
+                    "snr": result.search.plain.snr,
+                }
+            ),
         },
         "diagnostics": {
             "autocorrelation_time": {
