@@ -50,7 +50,9 @@ def main() -> int:
         cov = entry["coverage"]
         out.write(f"  {name:<20} KS p {entry['ks_p_value']:.3f}   coverage 50% {cov['0.5']:.3f}"
                   f"   90% {cov['0.9']:.3f}\n")
-    out.write(f"  combined p {doc['combined_p_value']:.3f}; bands {doc['coverage_band']}\n")
+    out.write(f"  combined p {doc['combined_p_value']:.3f}; bands {doc['coverage_band']}, "
+              f"family-wise {doc['familywise_band']}; outside: {doc['outside_band']}; "
+              f"{'PASS' if doc['passes'] else 'FAIL'}\n")
     return 0
 
 

@@ -47,6 +47,7 @@ def test_exact_posterior_passes() -> None:
     assert summary.combined_p_value > 1e-3
     wide = summarize_levels(summary.levels, band_level=0.999)
     assert all(wide.inside_band().values())
+    assert summary.passes()  # the family-wise rule: fails by chance with probability <= 0.1
 
 
 def test_overconfident_posterior_fails() -> None:
@@ -56,6 +57,31 @@ def test_overconfident_posterior_fails() -> None:
     assert summary.combined_p_value < 1e-6
     assert not any(summary.inside_band().values())
     assert summary.coverage["a"][0.9] < 0.75
+    assert not summary.passes()
+    assert len(summary.outside_band(summary.familywise_band)) == 4
+    # ~ 21% of truths beyond the central 99% of a half-width normal posterior (2 Phi(-1.29))
+    assert all(k > 20 and p < 1e-9 for k, p in summary.far_tail().values())
+
+
+def test_familywise_band_and_far_tail() -> None:
+    """Bonferroni (Dunn 1961): 2 parameters x 2 levels at 0.9 -> 0.975 per check."""
+    levels = {"a": np.linspace(0.01, 0.99, 200), "b": np.full(200, 0.5)}
+    levels["a"][:6] = 0.001  # six truths in the far lower tail
+    summary = summarize_levels(levels)
+    assert summary.familywise_level == pytest.approx(0.975)
+    for c in (0.5, 0.9):
+        lo, hi = summary.band[c]
+        wlo, whi = summary.familywise_band[c]
+        assert wlo < lo and whi > hi
+    # "b" puts every truth at its posterior median: 100% coverage, outside both bands
+    assert summary.outside_band() == ["b at 0.5", "b at 0.9"]
+    assert not summary.passes()
+    count, p = summary.far_tail()["a"]
+    assert count == 6
+    # Poisson limit of Binomial(200, 0.01), mean 2: P(X >= 6) = 1 - sum_{k<6} e^-2 2^k / k!
+    # = 0.0166 (Poisson limit theorem; any probability handbook); the exact binomial is 0.0160.
+    assert p == pytest.approx(0.0166, abs=1.5e-3)
+    assert summary.far_tail()["b"] == (0, 1.0)
 
 
 def test_fisher_combination_and_binomial_band() -> None:
