@@ -99,7 +99,7 @@ class CalibrationSummary:
 
     @property
     def familywise_level(self) -> float:
-        """Per-check band probability that keeps all checks inside with ``band_level`` (Bonferroni)."""
+        """Per-check band probability keeping all checks inside with ``band_level`` (Bonferroni)."""
         checks = len(self.coverage) * len(COVERAGE_LEVELS)
         return 1.0 - (1.0 - self.band_level) / checks
 
@@ -119,7 +119,7 @@ class CalibrationSummary:
         ]
 
     def far_tail(self) -> dict[str, tuple[int, float]]:
-        """Per parameter: truths outside the central :data:`TAIL_LEVEL` interval, and P(that many or more)."""
+        """Per parameter: truths outside the central :data:`TAIL_LEVEL` interval, P(as many or more)."""
         out = {}
         for name, a in self.levels.items():
             k = int(np.sum(np.abs(a - 0.5) > TAIL_LEVEL / 2.0))

@@ -72,7 +72,8 @@ def test_familywise_band_and_far_tail() -> None:
     for c in (0.5, 0.9):
         lo, hi = summary.band[c]
         wlo, whi = summary.familywise_band[c]
-        assert wlo < lo and whi > hi
+        assert wlo < lo
+        assert whi > hi
     # "b" puts every truth at its posterior median: 100% coverage, outside both bands
     assert summary.outside_band() == ["b at 0.5", "b at 0.9"]
     assert not summary.passes()
