@@ -119,7 +119,7 @@ class CalibrationSummary:
         ]
 
     def far_tail(self) -> dict[str, tuple[int, float]]:
-        """Per parameter: truths outside the central :data:`TAIL_LEVEL` interval, P(as many or more)."""
+        """Per parameter: truths outside the central 99% interval, and P(as many or more)."""
         out = {}
         for name, a in self.levels.items():
             k = int(np.sum(np.abs(a - 0.5) > TAIL_LEVEL / 2.0))

@@ -94,8 +94,10 @@ def _service_settings(args: argparse.Namespace) -> Any:
 
     from .settings import ServiceSettings
 
-    given = {k: getattr(args, k, None)
-             for k in ("host", "port", "data_dir", "workers", "database_url", "scheduler")}
+    given = {
+        k: getattr(args, k, None)
+        for k in ("host", "port", "data_dir", "workers", "database_url", "scheduler")
+    }
     try:
         return ServiceSettings(**{k: v for k, v in given.items() if v is not None})
     except ValidationError as err:
@@ -110,8 +112,11 @@ def _run_serve(args: argparse.Namespace) -> int:
 
     logging.getLogger().setLevel(logging.DEBUG if args.debug else logging.INFO)
     settings = _service_settings(args)
-    runs_on = (f"analyses on the Dask cluster at {settings.scheduler}" if settings.scheduler
-               else f"{settings.workers} worker(s)")
+    runs_on = (
+        f"analyses on the Dask cluster at {settings.scheduler}"
+        if settings.scheduler
+        else f"{settings.workers} worker(s)"
+    )
     # "starting": the database, the data folder and the scheduler are checked next,
     # and any of them can still stop the start with a clear error.
     sys.stderr.write(
@@ -197,7 +202,10 @@ def _run_calibrate(args: argparse.Namespace) -> int:
         bar = tqdm(total=args.n, file=sys.stderr, unit="injection", desc="calibration")
     try:
         doc = run_calibration(
-            setup, args.out, workers=args.workers, scheduler=args.scheduler,
+            setup,
+            args.out,
+            workers=args.workers,
+            scheduler=args.scheduler,
             progress=lambda done, _total: bar and bar.update(done - bar.n),
         )
     finally:
