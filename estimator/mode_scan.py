@@ -27,7 +27,6 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.fft
 from numpy.typing import NDArray
 
 from .conditioning import DetectorData
@@ -35,7 +34,13 @@ from .data import NoiseSpectrum, StrainSegment
 from .fiducial import Fiducial, find_fiducial
 from .likelihood import ExactLikelihood
 from .models import model_parts
-from .search import SPACING, _chirp_mass_from_tau, _stage_data, template_duration
+from .search import (
+    SPACING,
+    chirp_mass_from_tau,
+    stage_data,
+    template_duration,
+    template_snr_series,
+)
 from .waveform import chirp_time
 
 __all__ = ["ADOPT_MARGIN", "ModeScan", "bank_spins", "scan_spinning_modes", "wants_mode_scan"]
@@ -123,26 +128,15 @@ def _bank_snr(
 ) -> tuple[Array, Array]:
     """Loudest SNR within ``window`` and its GPS time, per chirp mass (one FFT each).
 
-    As :func:`estimator.search.snr_time_series`, with the model's amplitude factor
-    ``S`` and phase ``Psi`` (:func:`estimator.models.model_parts`) as the template.
+    The templates are the model's amplitude factor and phase
+    (:func:`estimator.models.model_parts`), correlated by
+    :func:`estimator.search.template_snr_series`.
     """
-    f = data.frequencies
-    weight = 4.0 * data.df / data.psd
-    k0 = data.first_index
-    m = scipy.fft.next_fast_len(2 * (k0 + f.size))
     spins = np.full(mc.shape, chi)
-    factor, psi = model_parts(model, f, mc, np.full(mc.shape, q), spins, spins)
-    factor, psi = np.atleast_2d(factor), np.atleast_2d(psi)
-    hh = np.maximum(factor**2 @ (f ** (-7.0 / 3.0) * weight), 1e-300)
-    c = (data.strain * weight * f ** (-7.0 / 6.0)).astype(np.complex64)
-    series = np.zeros((mc.size, m), dtype=np.complex64)
-    series[:, k0 : k0 + f.size] = c * (factor * np.exp(1j * (psi - np.pi / 4.0)))
-    z = scipy.fft.ifft(series, axis=1, workers=-1, overwrite_x=True)
-    times = data.epoch + np.arange(m) * (data.duration / m)
-    sel = (times >= window[0]) & (times <= window[1])
-    snr = np.abs(z[:, sel]) * (m / np.sqrt(hh)[:, None])
+    factor, psi = model_parts(model, data.frequencies, mc, np.full(mc.shape, q), spins, spins)
+    times, snr = template_snr_series(data, factor, psi - np.pi / 4.0, window=window)
     arg = np.argmax(snr, axis=1)
-    return snr[np.arange(arg.size), arg], times[sel][arg]
+    return snr[np.arange(arg.size), arg], times[arg]
 
 
 def scan_spinning_modes(
@@ -176,7 +170,7 @@ def scan_spinning_modes(
     tau0 = float(chirp_time(mc0, f_low))
     taus = np.asarray(tau0 + step * np.arange(-HALF_RANGE_STEPS, HALF_RANGE_STEPS + 1), float)
     taus = taus[taus > 0.0]
-    grid = _chirp_mass_from_tau(taus, f_low)
+    grid = chirp_mass_from_tau(taus, f_low)
     grid = grid[
         (grid >= max(lo, mc0 * (1.0 - HALF_RANGE_FRACTION)))
         & (grid <= min(hi, mc0 * (1.0 + HALF_RANGE_FRACTION)))
@@ -187,7 +181,7 @@ def scan_spinning_modes(
     chis = bank_spins(spin_max)
     longest = template_duration(float(grid.min()), min(qs), f_low)
     available = reference_time - segment.start_time - time_window - 2.0 * taper_duration - 1.0
-    data = _stage_data(
+    data = stage_data(
         segment,
         spectrum,
         f_start=f_low,

@@ -38,7 +38,15 @@ from .waveform import (
     symmetric_mass_ratio,
 )
 
-__all__ = ["SearchResult", "search_chirp_mass", "snr_time_series", "template_duration"]
+__all__ = [
+    "SearchResult",
+    "chirp_mass_from_tau",
+    "search_chirp_mass",
+    "snr_time_series",
+    "stage_data",
+    "template_duration",
+    "template_snr_series",
+]
 
 Array = NDArray[np.float64]
 
@@ -121,27 +129,62 @@ def snr_time_series(
         Shape ``(len(chirp_mass), m)``; single precision is enough for a search.
     """
     mc = np.atleast_1d(np.asarray(chirp_mass, dtype=float))
-    keep = data.frequencies <= f_max
-    f = data.frequencies[keep]
+    f = data.frequencies[data.frequencies <= f_max]
     if basis is None or basis.frequencies.size != f.size:
         basis = PhaseBasis(f)
     total = mc * symmetric_mass_ratio(mass_ratio) ** (-0.6)
     f_cut = np.minimum(isco_frequency(total), f_max)
-    k0 = data.first_index
-    m = scipy.fft.next_fast_len(2 * (k0 + f.size))
-    weight = 4.0 * data.df / data.psd[keep]
     # Single precision is plenty for a search (phase error ~1e-3 rad).
     spins = (np.full(mc.shape, spin), np.full(mc.shape, spin)) if spin != 0.0 else (None, None)
     psi = (basis.phase(mc, np.full(mc.shape, mass_ratio), *spins) - np.pi / 4.0).astype(np.float32)
-    inband = f[None, :] <= f_cut[:, None]
-    hh = np.maximum(np.sum(inband * (f ** (-7.0 / 3.0) * weight)[None, :], axis=1), 1e-300)
-    # c = d h* / S: h* = f^{-7/6} exp(+i psi), applied as cos and sin (faster than exp).
-    c = (data.strain[keep] * weight * f ** (-7.0 / 6.0)).astype(np.complex64)
+    inband = (f[None, :] <= f_cut[:, None]).astype(np.float32)
+    return template_snr_series(data, inband, psi, window=window)
+
+
+def template_snr_series(
+    data: DetectorData,
+    factor: Array | NDArray[np.float32],
+    phase: Array | NDArray[np.float32],
+    *,
+    window: tuple[float, float] | None = None,
+) -> tuple[Array, NDArray[np.float64]]:
+    """Matched-filter SNR at every time shift of templates ``factor f^{-7/6} e^{-i phase}``.
+
+    The correlation of the data with each template at all time shifts by one
+    inverse FFT (Allen et al. 2012, PRD 85, 122006, Sec. IV), maximised over the
+    constant phase by taking the modulus, normalised by ``sqrt(<h|h>)``.
+
+    Parameters
+    ----------
+    factor, phase
+        Shape ``(n, k)`` on ``data.frequencies[:k]``: the amplitude factor
+        relative to the Newtonian ``f^{-7/6}`` (0 outside the template's band)
+        and the phase, ``Psi - pi/4`` with ``Psi`` of :mod:`estimator.waveform`.
+        Single precision is enough for a search.
+    window
+        Keep only the GPS times in ``[start, stop]`` (all when ``None``).
+
+    Returns
+    -------
+    times
+        GPS times of the shifts, shape ``(m,)``.
+    snr
+        Shape ``(n, m)``.
+    """
+    amp, psi = np.atleast_2d(factor), np.atleast_2d(phase)
+    k = psi.shape[1]
+    f = data.frequencies[:k]
+    weight = 4.0 * data.df / data.psd[:k]
+    k0 = data.first_index
+    m = scipy.fft.next_fast_len(2 * (k0 + k))
+    hh = np.maximum(amp.astype(float) ** 2 @ (f ** (-7.0 / 3.0) * weight), 1e-300)
+    # c = d h* / S: h* = factor f^{-7/6} exp(+i psi), applied as cos and sin (faster than exp).
+    c = (data.strain[:k] * weight * f ** (-7.0 / 6.0)).astype(np.complex64)
     cos, sin = np.cos(psi), np.sin(psi)
-    cos *= inband
-    sin *= inband
-    series = np.zeros((mc.size, m), dtype=np.complex64)
-    block = series[:, k0 : k0 + f.size]
+    cos *= amp
+    sin *= amp
+    series = np.zeros((psi.shape[0], m), dtype=np.complex64)
+    block = series[:, k0 : k0 + k]
     block.real = c.real * cos - c.imag * sin
     block.imag = c.real * sin + c.imag * cos
     z = scipy.fft.ifft(series, axis=1, workers=-1, overwrite_x=True)
@@ -152,7 +195,7 @@ def snr_time_series(
     return times, np.abs(z) * (m / np.sqrt(hh)[:, None])
 
 
-def _stage_data(
+def stage_data(
     segment: StrainSegment,
     spectrum: NoiseSpectrum,
     *,
@@ -241,7 +284,7 @@ def search_chirp_mass(
         longest = min(template_duration(mc_lo, q, f_s), available)
         key = (round(f_s, 6), round(longest, 1))
         if key not in cache:
-            stage = _stage_data(
+            stage = stage_data(
                 segment,
                 spectrum,
                 f_start=f_s,
@@ -255,7 +298,7 @@ def search_chirp_mass(
         data, basis = cache[key]
         step = SPACING / f_s
         taus = np.arange(float(chirp_time(mc_hi, f_s)), float(chirp_time(mc_lo, f_s)) + step, step)
-        trial = _chirp_mass_from_tau(taus, f_s)
+        trial = chirp_mass_from_tau(taus, f_s)
         trial = np.clip(trial, lo, hi)
         scores = np.empty(trial.size)
         peaks = np.empty(trial.size)
@@ -302,11 +345,11 @@ def search_chirp_mass(
             step = SPACING / f_s
             carry = CARRY * (2.0 if final else 1.0)
             tau_best = float(chirp_time(mc, f_s))
-            mc_lo = max(lo, float(_chirp_mass_from_tau(tau_best + carry * step, f_s)))
+            mc_lo = max(lo, float(chirp_mass_from_tau(tau_best + carry * step, f_s)))
             mc_hi = (
                 hi
                 if tau_best <= carry * step
-                else min(hi, float(_chirp_mass_from_tau(tau_best - carry * step, f_s)))
+                else min(hi, float(chirp_mass_from_tau(tau_best - carry * step, f_s)))
             )
             f_s = f_next
             if final:
@@ -338,7 +381,7 @@ def search_chirp_mass(
     )
 
 
-def _chirp_mass_from_tau(tau: Array | float, f_s: float) -> Array:
+def chirp_mass_from_tau(tau: Array | float, f_s: float) -> Array:
     """Invert ``tau_0(Mc, f_s)`` (Sathyaprakash & Dhurandhar 1991, Eq. 2.7) for ``Mc``."""
     tau_arr = np.asarray(tau, dtype=float)
     return np.asarray(
