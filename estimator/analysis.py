@@ -124,44 +124,41 @@ def _climb_from_search(
     exact: ExactLikelihood,
     model: str,
     progress: Callable[[float], None],
-) -> Fiducial:
-    """The fiducial climbed from the search's loudest template, spins held at its own.
+) -> list[Fiducial]:
+    """Fits climbed from the search's loudest template, spins held at its own; best first.
 
     When the loudest template is spinning and a non-spinning one was found too,
-    both are climbed and the higher exact likelihood is kept (the search's
+    both are climbed and the higher exact likelihood leads (the search's
     templates end at the ISCO, so for a heavy source a spinning one can be
-    louder there and yet far from the source).
+    louder there and yet far from the source); the first is the fiducial.
     """
     starts = [found] + ([found.plain] if found.plain is not None else [])
-    best: Fiducial | None = None
+    climbs: list[Fiducial] = []
     for i, start in enumerate(starts):
 
         def step(fraction: float, i: int = i) -> None:
             progress((i + fraction) / len(starts))
 
-        climbed = find_fiducial(
-            datasets,
-            reference,
-            {
-                "chirp_mass": start.chirp_mass,
-                "mass_ratio": start.mass_ratio,
-                "coalescence_time": start.coalescence_time - reference,
-            },
-            mass_ratio_range=settings.mass_ratio_range,
-            chirp_mass_range=settings.chirp_mass_range,
-            time_window=settings.time_window,
-            n_bins=settings.n_bins,
-            progress=step,
-            exact=exact,
-            model=model,
-            spins=(start.spin, start.spin),
+        climbs.append(
+            find_fiducial(
+                datasets,
+                reference,
+                {
+                    "chirp_mass": start.chirp_mass,
+                    "mass_ratio": start.mass_ratio,
+                    "coalescence_time": start.coalescence_time - reference,
+                },
+                mass_ratio_range=settings.mass_ratio_range,
+                chirp_mass_range=settings.chirp_mass_range,
+                time_window=settings.time_window,
+                n_bins=settings.n_bins,
+                progress=step,
+                exact=exact,
+                model=model,
+                spins=(start.spin, start.spin),
+            )
         )
-        if best is None or climbed.log_likelihood > best.log_likelihood:
-            best = climbed
-    if best is None:  # pragma: no cover - starts is never empty
-        msg = "no start to climb from"
-        raise RuntimeError(msg)
-    return best
+    return sorted(climbs, key=lambda c: -c.log_likelihood)
 
 
 def analysis_prior(settings: AnalysisSettings) -> InspiralPrior:
@@ -325,14 +322,20 @@ def run_analysis(
     reference = settings.trigger_time
     datasets = [data]
     exact = ExactLikelihood(datasets, reference, model=model)
-    fiducial = _climb_from_search(
+    climbs = _climb_from_search(
         found, datasets, reference, settings, exact, model, stage_progress(progress, "fiducial")
     )
+    fiducial = climbs[0]
     timings["fiducial"] = time.perf_counter() - clock
     mode_scan = None
-    if prior.spinning and wants_mode_scan(
-        fiducial.params["chirp_mass"], fiducial.params["mass_ratio"], data.f_low, prior.spin_max
-    ):
+    centres = [
+        c
+        for c in climbs
+        if wants_mode_scan(
+            c.params["chirp_mass"], c.params["mass_ratio"], data.f_low, prior.spin_max
+        )
+    ]
+    if prior.spinning and centres:
         clock = time.perf_counter()
         mode_scan = scan_spinning_modes(
             segment,
@@ -350,6 +353,7 @@ def run_analysis(
             time_window=settings.time_window,
             n_bins=settings.n_bins,
             taper_duration=settings.taper_duration,
+            centres=centres,
         )
         timings["mode_scan"] = time.perf_counter() - clock
         if mode_scan.adopted and mode_scan.candidate is not None:
