@@ -42,6 +42,10 @@ def test_reduced_calibration_run(tmp_path: Path, capsys: pytest.CaptureFixture[s
     assert (out / "pp_plot.png").stat().st_size > 20_000
     assert doc["wall_time_s"] > 0
     assert "combined p" in printed
+    # The verdict line states the family-wise rule and agrees with calibration.json.
+    verdict = "PASS" if doc["passes"] else "FAIL"
+    assert f"{verdict}: KS p > 0.01 for every parameter" in printed
+    assert doc["familywise_level"] == pytest.approx(1.0 - 0.1 / (2 * len(doc["parameters"])))
 
     # The injections span the prior: low observed SNR and unequal masses among them.
     snr = sorted(float(r["observed_snr"]) for r in rows)
