@@ -89,6 +89,7 @@ def find_fiducial(
     exact: ExactLikelihood | None = None,
     model: str = "taylorf2",
     spins: tuple[float, float] = (0.0, 0.0),
+    free_spin: float | None = None,
 ) -> Fiducial:
     """Maximise the likelihood over (chirp mass, q, t_c), distance profiled out.
 
@@ -102,6 +103,14 @@ def find_fiducial(
     spins
         Aligned spins ``(spin1, spin2)`` held fixed during the climb (the sampler
         explores them); non-zero ones are part of the returned parameters.
+    free_spin
+        When given (the prior's bound ``spin_max``), equal aligned spins
+        ``spin1 = spin2 = chi`` are climbed too, from ``spins[0]`` and within
+        ``±free_spin``: the masses and the spins are degenerate, so two peaks climbed
+        with different fixed spins are compared fairly only when each may also
+        move its spin (calibration injection 102 of 2026-12-04: climbed with
+        spins 0, the fit nearest the source was 144 below the source's own
+        log-likelihood, and a fit at spins -0.4 far from it was preferred).
     """
     if exact is None:
         exact = ExactLikelihood(datasets, reference_time, model=model)
@@ -111,7 +120,16 @@ def find_fiducial(
     hi = np.array([chirp_mass_range[1], mass_ratio_range[1], time_window])
     x = np.array([start["chirp_mass"], start["mass_ratio"], start["coalescence_time"]], dtype=float)
     fixed = {k: float(v) for k, v in zip(SPIN_NAMES, spins, strict=True) if v != 0.0}
+    if free_spin is not None:  # a fourth coordinate: the equal spins
+        scale = np.append(scale, 0.05)
+        lo = np.append(lo, -free_spin)
+        hi = np.append(hi, free_spin)
+        x = np.append(x, np.clip(spins[0], -free_spin, free_spin))
+    dim = x.size
     evaluations = 0
+
+    def spins_at(y: Array) -> dict[str, float]:
+        return fixed if dim == 3 else {"spin1": float(y[3]), "spin2": float(y[3])}
 
     def objective(like: AnyLikelihood, transform: Array) -> Callable[[Array], float]:
         def f(u: Array) -> float:
@@ -120,7 +138,7 @@ def find_fiducial(
             y = x_anchor + transform @ u
             # Clip onto the box (flat outside it) so the simplex can slide along a bound.
             y = np.clip(y, lo, hi)
-            return -_profile_distance(like, y, fixed)[0]
+            return -_profile_distance(like, y, spins_at(y))[0]
 
         return f
 
@@ -128,19 +146,22 @@ def find_fiducial(
         binned_likelihood(
             datasets,
             reference_time,
-            {**start, "effective_distance": 1.0, **fixed},
+            {**start, "effective_distance": 1.0, **spins_at(x)},
             n_bins=n_bins,
             model=model,
         ),
         x,
-        fixed,
+        spins_at(x),
     )
     steps = {
         "chirp_mass": scale[0],
         "mass_ratio": scale[1],
         "effective_distance": 0.1 * dist,
         "coalescence_time": scale[2],
+        "spin": scale[-1],
     }
+    names = (*PARAMETER_NAMES, "spin")[: dim + 1]
+    block_index = [0, 1, 3, 4][:dim]
     for r in range(rounds + 1):
         x_anchor = x.copy()
         fid = {
@@ -148,7 +169,7 @@ def find_fiducial(
             "mass_ratio": x[1],
             "effective_distance": dist,
             "coalescence_time": x[2],
-            **fixed,
+            **spins_at(x),
         }
         like: AnyLikelihood
         if r < rounds:
@@ -157,29 +178,37 @@ def find_fiducial(
             # Whiten the coordinates with the local curvature, so the simplex moves
             # along the chirp-mass / mass-ratio ridge instead of across it.
             def with_spins(p: Mapping[str, Array], like: AnyLikelihood = like) -> Array:
+                if "spin" in p:
+                    p = {**p, "spin1": p["spin"], "spin2": p["spin"]}
+                    p.pop("spin")
+                    return like.log_likelihood(p)
                 return like.log_likelihood({**p, **{k: np.full(1, v) for k, v in fixed.items()}})
 
+            center = {**fid, "spin": x[3]} if dim == 4 else fid
             for _ in range(2):
-                cov = curvature_covariance(with_spins, fid, steps)
-                steps = {k: 0.5 * float(np.sqrt(cov[i, i])) for i, k in enumerate(PARAMETER_NAMES)}
+                cov = curvature_covariance(with_spins, center, steps, names)
+                steps = {k: 0.5 * float(np.sqrt(cov[i, i])) for i, k in enumerate(names)}
                 steps["mass_ratio"] = min(steps["mass_ratio"], 0.1)
-            block = cov[np.ix_([0, 1, 3], [0, 1, 3])]
+                # Differences stay inside |chi| < 1, where the model is defined.
+                room = max(1e-3, 0.995 - abs(float(x[3]))) if dim == 4 else 0.2
+                steps["spin"] = min(steps.get("spin", 0.05), 0.2, room)
+            block = cov[np.ix_(block_index, block_index)]
             transform = np.asarray(np.linalg.cholesky(block + np.diag(np.diag(block)) * 1e-9))
-            options = {"xatol": 1e-2, "fatol": 1e-3, "maxiter": 300}
-            simplex = np.eye(3) * 1.0
+            options = {"xatol": 1e-2, "fatol": 1e-3, "maxiter": 100 * dim}
+            simplex = np.eye(dim) * 1.0
         else:
             like = exact
             options = {"xatol": 1e-2, "fatol": 1e-4, "maxiter": exact_iterations}
-            simplex = np.eye(3) * 0.3
-        init = np.vstack([np.zeros(3), simplex])
+            simplex = np.eye(dim) * 0.3
+        init = np.vstack([np.zeros(dim), simplex])
         res = scipy.optimize.minimize(
             objective(like, transform),
-            np.zeros(3),
+            np.zeros(dim),
             method="Nelder-Mead",
             options={**options, "initial_simplex": init},
         )
         x = np.clip(x_anchor + transform @ res.x, lo, hi)
-        _, dist = _profile_distance(like, x, fixed)
+        _, dist = _profile_distance(like, x, spins_at(x))
         if progress is not None:
             progress((r + 1) / (rounds + 1))
     params = {
@@ -187,7 +216,7 @@ def find_fiducial(
         "mass_ratio": float(x[1]),
         "effective_distance": float(dist),
         "coalescence_time": float(x[2]),
-        **fixed,
+        **(spins_at(x) if dim == 4 else fixed),
     }
     arrays = {k: np.array([v]) for k, v in params.items()}
     log_l = float(exact.log_likelihood(arrays)[0])

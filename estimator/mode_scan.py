@@ -16,9 +16,11 @@ So before sampling, a bank of templates of the analysis's own model, on a grid
 of chirp mass (spaced in Newtonian chirp time as the search is), mass ratio and
 equal aligned spins, is correlated with the data by one inverse FFT each (the
 SNR at every time shift at once, Allen et al. 2012, PRD 85, 122006, Sec. IV).
-The loudest few are climbed as the fiducial is, spins fixed, and the best of
-those replaces the fiducial when its log-likelihood is higher by more than
-:data:`ADOPT_MARGIN`.
+The loudest few are climbed as the fiducial is, with their equal spins free
+to move too (a peak climbed at a fixed spin can lie far below the one a small
+change of spin reaches, and then the wrong peak wins the comparison:
+calibration injection 102 of 2026-12-04), and the best of those replaces the
+fiducial when its log-likelihood is higher by more than :data:`ADOPT_MARGIN`.
 """
 
 from __future__ import annotations
@@ -214,6 +216,7 @@ def scan_spinning_modes(
                     exact=exact,
                     model=model,
                     spins=(chi, chi),
+                    free_spin=0.9 * spin_max,
                     rounds=2,
                     exact_iterations=20,
                 )
