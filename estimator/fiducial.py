@@ -104,7 +104,7 @@ def find_fiducial(
         Aligned spins ``(spin1, spin2)`` held fixed during the climb (the sampler
         explores them); non-zero ones are part of the returned parameters.
     free_spin
-        When given (the prior's bound ``spin_max``), equal aligned spins
+        When given (a bound inside the prior's ``spin_max``), equal aligned spins
         ``spin1 = spin2 = chi`` are climbed too, from ``spins[0]`` and within
         ``±free_spin``: the masses and the spins are degenerate, so two peaks climbed
         with different fixed spins are compared fairly only when each may also
@@ -178,10 +178,9 @@ def find_fiducial(
             # Whiten the coordinates with the local curvature, so the simplex moves
             # along the chirp-mass / mass-ratio ridge instead of across it.
             def with_spins(p: Mapping[str, Array], like: AnyLikelihood = like) -> Array:
-                if "spin" in p:
-                    p = {**p, "spin1": p["spin"], "spin2": p["spin"]}
-                    p.pop("spin")
-                    return like.log_likelihood(p)
+                if "spin" in p:  # the free equal spins
+                    masses = {k: v for k, v in p.items() if k != "spin"}
+                    return like.log_likelihood({**masses, "spin1": p["spin"], "spin2": p["spin"]})
                 return like.log_likelihood({**p, **{k: np.full(1, v) for k, v in fixed.items()}})
 
             center = {**fid, "spin": x[3]} if dim == 4 else fid
@@ -216,7 +215,7 @@ def find_fiducial(
         "mass_ratio": float(x[1]),
         "effective_distance": float(dist),
         "coalescence_time": float(x[2]),
-        **(spins_at(x) if dim == 4 else fixed),
+        **spins_at(x),
     }
     arrays = {k: np.array([v]) for k, v in params.items()}
     log_l = float(exact.log_likelihood(arrays)[0])
