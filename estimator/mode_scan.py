@@ -60,6 +60,8 @@ LONGEST_SIGNAL = 10.0
 SMALLEST_SPIN_MAX = 0.2
 #: Equal aligned spins of the bank, before clipping to the prior (90% of spin_max).
 SPIN_GRID = (-0.8, -0.4, 0.0, 0.4, 0.8)
+#: The bank's spins, and the spins its climbs may reach, stay within this share of spin_max.
+SPIN_REACH = 0.9
 #: Mass ratios of the bank, before clipping to the prior range.
 MASS_RATIO_GRID = (1.0, 0.7, 0.5, 0.35, 0.25, 0.17, 0.11)
 #: Chirp-mass half-range of the bank, in units of the search's template spacing,
@@ -106,12 +108,13 @@ class ModeScan:
 def bank_spins(spin_max: float) -> tuple[float, ...]:
     """Equal aligned spins a search or scan bank tries under a prior of ``±spin_max``.
 
-    :data:`SPIN_GRID` clipped to 90% of the prior's bound; only zero below
+    :data:`SPIN_GRID` clipped to :data:`SPIN_REACH` of the prior's bound; only zero below
     :data:`SMALLEST_SPIN_MAX` (where the spins cannot move the masses far).
     """
     if spin_max < SMALLEST_SPIN_MAX:
         return (0.0,)
-    return tuple(sorted({float(np.clip(c, -0.9 * spin_max, 0.9 * spin_max)) for c in SPIN_GRID}))
+    reach = SPIN_REACH * spin_max
+    return tuple(sorted({float(np.clip(c, -reach, reach)) for c in SPIN_GRID}))
 
 
 def wants_mode_scan(chirp_mass: float, mass_ratio: float, f_low: float, spin_max: float) -> bool:
@@ -216,7 +219,7 @@ def scan_spinning_modes(
                     exact=exact,
                     model=model,
                     spins=(chi, chi),
-                    free_spin=0.9 * spin_max,
+                    free_spin=SPIN_REACH * spin_max,
                     rounds=2,
                     exact_iterations=20,
                 )
